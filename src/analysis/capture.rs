@@ -1,0 +1,144 @@
+//! One capture: steady part, frequency, fits on every channel, explicit
+//! residuals, local noise and detection limits.
+
+use super::steady::steady_range;
+use super::AnalysisConfig;
+use crate::dsp::fit::{estimate_frequency, fit_tones, residual_baseband, ToneModel};
+use crate::dsp::noise::quadrature_sigma;
+use crate::run::{Capture, Drive};
+use rustfft::FftPlanner;
+use serde::Serialize;
+
+/// What one channel of one capture holds.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ChannelFit {
+    /// Channel number, from 1.
+    pub channel: u32,
+    /// Fitted fundamental, peak amplitude (full scale 1.0); 0 in idle captures.
+    pub amplitude: f64,
+    /// Phase of the fundamental, radians (`a·cos(ωt + φ)`, `t` from the span's middle).
+    pub phase_rad: f64,
+    /// Peak amplitudes of harmonics 2, 3, … that were fitted.
+    pub harmonics: Vec<f64>,
+    /// DC offset (full scale 1.0).
+    pub dc: f64,
+    /// rms of the explicit residual (all but DC, tone and harmonics).
+    pub residual_rms: f64,
+    /// Standard deviation of each quadrature part of the fitted fundamental,
+    /// from the noise next to the test frequency (`None` in idle captures).
+    pub quadrature_sigma: Option<f64>,
+    /// Largest absolute sample over the whole capture.
+    pub peak: f64,
+    /// Samples at or beyond the clipping threshold over the whole capture.
+    pub clipped: usize,
+}
+
+/// The analysis of one capture.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CaptureAnalysis {
+    /// The capture's file, as named in run.json.
+    pub file: String,
+    /// The drive, `None` for idle captures.
+    pub drive: Option<Drive>,
+    /// Frames in the capture.
+    pub frames: usize,
+    /// First frame of the analysed span.
+    pub span_start: usize,
+    /// Frames in the analysed span.
+    pub span_frames: usize,
+    /// Estimated tone frequency in Hz (drive captures).
+    pub tone_hz: Option<f64>,
+    /// Per channel, in channel order.
+    pub channels: Vec<ChannelFit>,
+}
+
+/// Analyse one capture. `file` names it in messages.
+pub fn analyze_capture(
+    capture: &Capture,
+    file: &str,
+    drive: Option<Drive>,
+    config: &AnalysisConfig,
+) -> Result<CaptureAnalysis, String> {
+    let fs = f64::from(capture.sample_rate_hz);
+    let frames = capture.frames();
+    let (span, model) = match drive {
+        Some(d) => {
+            let aggressor = &capture.channels[d.channel as usize - 1];
+            let span = steady_range(aggressor, fs, d.frequency_hz)
+                .map_err(|e| format!("channel {} at {} Hz: {e}", d.channel, d.frequency_hz))?;
+            let est = estimate_frequency(
+                &aggressor[span.clone()],
+                fs,
+                d.frequency_hz,
+                config.frequency_search,
+                config.max_harmonic,
+            )
+            .map_err(|e| format!("channel {}: {e}", d.channel))?;
+            (span, Some(est.model))
+        }
+        None => (0..frames, None),
+    };
+    let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
+    let mut planner = FftPlanner::new();
+    let mut baseband = Vec::new();
+    let fits = match &model {
+        Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
+        None => None,
+    };
+    let channels = slices
+        .iter()
+        .enumerate()
+        .map(|(i, x)| {
+            let full = &capture.channels[i];
+            let peak = full.iter().fold(0.0f64, |p, v| p.max(f64::from(v.abs())));
+            let clipped = full
+                .iter()
+                .filter(|v| f64::from(v.abs()) >= config.clip_level)
+                .count();
+            let len = x.len() as f64;
+            match (&model, &fits) {
+                (Some(m), Some(fits)) => {
+                    let fit = &fits[i];
+                    let ss = residual_baseband(x, fit, m, &mut baseband);
+                    let sigma =
+                        quadrature_sigma(&baseband, m.freq_hz(fs), fs, m.terms, &mut planner);
+                    ChannelFit {
+                        channel: i as u32 + 1,
+                        amplitude: fit.fundamental(),
+                        phase_rad: fit.phase(0),
+                        harmonics: (1..m.terms).map(|k| fit.amplitude(k)).collect(),
+                        dc: fit.dc,
+                        residual_rms: (ss / (len - m.params() as f64)).sqrt(),
+                        quadrature_sigma: sigma,
+                        peak,
+                        clipped,
+                    }
+                }
+                _ => {
+                    let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len;
+                    let ss: f64 = x.iter().map(|v| (f64::from(*v) - mean).powi(2)).sum();
+                    ChannelFit {
+                        channel: i as u32 + 1,
+                        amplitude: 0.0,
+                        phase_rad: 0.0,
+                        harmonics: Vec::new(),
+                        dc: mean,
+                        residual_rms: (ss / (len - 1.0)).sqrt(),
+                        quadrature_sigma: None,
+                        peak,
+                        clipped,
+                    }
+                }
+            }
+        })
+        .collect();
+    Ok(CaptureAnalysis {
+        file: file.to_string(),
+        drive,
+        frames,
+        span_start: span.start,
+        span_frames: span.len(),
+        tone_hz: model.map(|m: ToneModel| m.freq_hz(fs)),
+        channels,
+    })
+}

@@ -1,0 +1,98 @@
+//! Command-line front: argument structs (their doc comments are the help
+//! text), one module per command, exit codes, terminal output.
+
+mod analyze;
+mod demo;
+mod devices;
+mod progress;
+mod simulate;
+mod summary;
+
+use clap::{Parser, Subcommand};
+use std::process::ExitCode;
+
+/// Exit codes automation can rely on.
+pub mod exit {
+    /// The command did what was asked (and any verdict passed).
+    pub const OK: u8 = 0;
+    /// Bad input, a missing file, an I/O or device problem.
+    pub const ERROR: u8 = 1;
+    /// The command line itself was wrong (clap's usage errors).
+    pub const USAGE: u8 = 2;
+}
+
+/// Channel-isolation and leakage measurement for multichannel sound cards
+/// and data-acquisition front ends.
+///
+/// septum drives a test tone into one input at a time while the others are
+/// terminated, records every input at once, and computes the separation
+/// (crosstalk with the sign flipped) for every pair, each channel's noise
+/// floor and the leakage matrix per test frequency.
+#[derive(Debug, Parser)]
+#[command(name = "septum", version, propagate_version = true)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    Analyze(analyze::Args),
+    Simulate(simulate::Args),
+    Demo(demo::Args),
+    Devices(devices::Args),
+}
+
+/// Run the command line and return the process exit code.
+pub fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return ExitCode::from(if e.use_stderr() {
+                exit::USAGE
+            } else {
+                exit::OK
+            });
+        }
+    };
+    let result = match cli.command {
+        Command::Analyze(a) => analyze::run(a),
+        Command::Simulate(a) => simulate::run(a),
+        Command::Demo(a) => demo::run(a),
+        Command::Devices(a) => devices::run(a),
+    };
+    match result {
+        Ok(code) => ExitCode::from(code),
+        Err(e) => {
+            eprintln!("septum: error: {}", one_line(&e));
+            ExitCode::from(exit::ERROR)
+        }
+    }
+}
+
+/// An error and its causes on one line.
+fn one_line(e: &anyhow::Error) -> String {
+    let mut parts: Vec<String> = Vec::new();
+    for cause in e.chain() {
+        let s = cause.to_string();
+        if !parts.iter().any(|p| p.contains(&s)) {
+            parts.push(s);
+        }
+    }
+    parts.join(": ").replace('\n', " ")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parses_every_command() {
+        Cli::try_parse_from(["septum", "analyze", "run", "--out", "res", "--force"]).unwrap();
+        Cli::try_parse_from(["septum", "simulate", "--out", "run", "--model", "m.toml"]).unwrap();
+        Cli::try_parse_from(["septum", "demo"]).unwrap();
+        Cli::try_parse_from(["septum", "devices"]).unwrap();
+        assert!(Cli::try_parse_from(["septum", "analyze", "run"]).is_err());
+    }
+}

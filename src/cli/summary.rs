@@ -1,0 +1,147 @@
+//! The terminal summary of an analysis: aligned, labelled tables.
+
+use comfy_table::{presets, CellAlignment, Table};
+use septum::analysis::RunResults;
+use std::path::Path;
+
+fn table(header: &[&str]) -> Table {
+    let mut t = Table::new();
+    t.load_preset(presets::NOTHING);
+    t.set_header(header.to_vec());
+    for (i, col) in t.column_iter_mut().enumerate() {
+        if i > 0 {
+            col.set_cell_alignment(CellAlignment::Right);
+        }
+    }
+    t
+}
+
+fn front_end_line(r: &RunResults) -> String {
+    let fe = r.manifest.extra.get("front_end");
+    let label = fe
+        .and_then(|f| f.get("label"))
+        .and_then(|v| v.as_str())
+        .unwrap_or("(no label)");
+    match fe.and_then(|f| f.get("serial")).and_then(|v| v.as_str()) {
+        Some(s) => format!("{label}, serial {s}"),
+        None => label.to_string(),
+    }
+}
+
+/// Print the summary of `r` (analysed from `run_dir` into `out`).
+pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
+    let m = &r.manifest;
+    println!("septum: channel separation of {}", run_dir.display());
+    println!("front end: {}", front_end_line(r));
+    println!(
+        "{} channels at {} Hz, {} captures ({} idle)",
+        m.channels.len(),
+        m.sample_rate_hz,
+        m.captures.len(),
+        m.captures.iter().filter(|c| c.drive.is_none()).count()
+    );
+    println!();
+    println!("Worst pair per test frequency (separation in dB; \">\" marks a lower bound at the noise floor)");
+    let mut t = table(&[
+        "frequency (Hz)",
+        "tone (Hz)",
+        "aggressor",
+        "victim",
+        "separation (dB)",
+        "u95 (dB)",
+        "floor-limited pairs",
+    ]);
+    for s in &r.per_frequency {
+        let w = &s.worst;
+        t.add_row(vec![
+            format!("{}", s.frequency_hz),
+            format!("{:.3}", w.tone_hz),
+            w.aggressor.to_string(),
+            w.victim.to_string(),
+            separation(w.separation_db, w.floor_limited),
+            w.separation_u95_db
+                .map_or("-".into(), |u| format!("{u:.2}")),
+            format!("{} of {}", s.floor_limited, s.pairs),
+        ]);
+    }
+    println!("{t}\n");
+    if m.channels.len() <= 16 {
+        for f in m.frequencies() {
+            println!("Separation at {f} Hz (dB; rows: aggressor, columns: victim)");
+            let n = m.channels.len() as u32;
+            let mut header: Vec<String> = vec!["aggr.".into()];
+            header.extend((1..=n).map(|v| format!("{v}")));
+            let mut t = table(&header.iter().map(String::as_str).collect::<Vec<_>>());
+            for a in 1..=n {
+                if !r
+                    .pairs
+                    .iter()
+                    .any(|p| p.frequency_hz == f && p.aggressor == a)
+                {
+                    continue;
+                }
+                let mut row = vec![a.to_string()];
+                row.extend((1..=n).map(|v| {
+                    r.pair(f, a, v)
+                        .map_or("-".into(), |p| separation(p.separation_db, p.floor_limited))
+                }));
+                t.add_row(row);
+            }
+            println!("{t}\n");
+        }
+    }
+    println!(
+        "Noise floor per channel (broadband, 0 to {} Hz)",
+        m.sample_rate_hz / 2
+    );
+    let mut t = table(&[
+        "channel",
+        "name",
+        "termination",
+        "floor (dBFS)",
+        "density (dBFS/√Hz)",
+        "from",
+        "clipped",
+    ]);
+    for f in &r.floors {
+        let e = &m.channels[f.channel as usize - 1];
+        t.add_row(vec![
+            f.channel.to_string(),
+            e.name.clone().unwrap_or_default(),
+            e.termination.clone().unwrap_or_default(),
+            format!("{:.1}", f.noise_floor_dbfs),
+            format!("{:.1}", f.noise_density_dbfs_per_rthz),
+            if f.source == "idle" {
+                "idle capture"
+            } else {
+                "victim captures"
+            }
+            .to_string(),
+            f.clipped.to_string(),
+        ]);
+    }
+    println!("{t}\n");
+    if r.warnings.is_empty() {
+        println!("Warnings: none");
+    } else {
+        println!("Warnings ({})", r.warnings.len());
+        for w in &r.warnings {
+            let at = w
+                .capture
+                .as_deref()
+                .map(|c| format!(" [{c}]"))
+                .unwrap_or_default();
+            println!("  {}{at}: {}", w.kind, w.message);
+        }
+    }
+    println!();
+    println!("results: {}", out.display());
+}
+
+fn separation(db: f64, floor_limited: bool) -> String {
+    if floor_limited {
+        format!(">{db:.1}")
+    } else {
+        format!("{db:.1}")
+    }
+}

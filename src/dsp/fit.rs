@@ -1,0 +1,443 @@
+//! Least-squares tone fits (IEEE Std 1057 / 1241 style).
+//!
+//! The model on every channel is `dc + Σ_k (c_k·cos(kωt) + s_k·sin(kωt))` for
+//! the fundamental and its low harmonics, with `t = n − center` measured from
+//! the middle of the record so that the normal equations stay well
+//! conditioned. The basis is the same for every channel of a capture, so one
+//! Gram matrix and one Cholesky factor serve them all; per channel only the
+//! projections `Σ x·φ` are accumulated, in f64.
+
+use super::linalg::Cholesky;
+use super::osc::{fill_harmonics, BLOCK};
+use realfft::RealFftPlanner;
+use std::f64::consts::PI;
+use thiserror::Error;
+
+/// Why a fit could not be made.
+#[derive(Debug, Error, Clone, PartialEq)]
+pub enum FitError {
+    /// Too few samples for the number of unknowns.
+    #[error("record of {samples} samples is too short to fit {params} parameters")]
+    TooShort {
+        /// Samples in the record.
+        samples: usize,
+        /// Unknowns in the model.
+        params: usize,
+    },
+    /// The basis is degenerate (a frequency at 0 or at the Nyquist frequency).
+    #[error("degenerate fit at {freq_hz} Hz")]
+    Degenerate {
+        /// Fundamental frequency of the fit.
+        freq_hz: f64,
+    },
+    /// No tone was found near the nominal frequency.
+    #[error("no tone found within {search_pct}% of {nominal_hz} Hz")]
+    NoTone {
+        /// Nominal frequency searched around.
+        nominal_hz: f64,
+        /// Half-width of the search, in percent of the nominal frequency.
+        search_pct: f64,
+    },
+}
+
+/// What is fitted: the fundamental's angular frequency in radians per sample,
+/// the number of sinusoidal terms (fundamental plus harmonics), and the
+/// sample index that counts as `t = 0`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ToneModel {
+    /// Fundamental in radians per sample.
+    pub omega: f64,
+    /// Sinusoidal terms: 1 for the fundamental alone, 5 for up to the 5th harmonic.
+    pub terms: usize,
+    /// Sample index of `t = 0` (the middle of the record).
+    pub center: f64,
+}
+
+impl ToneModel {
+    /// A model for a record of `len` samples at `freq_hz` with up to
+    /// `max_harmonic` (≥ 1) terms; harmonics within 1 % of the Nyquist
+    /// frequency or above it are left out.
+    pub fn new(freq_hz: f64, sample_rate_hz: f64, len: usize, max_harmonic: usize) -> Self {
+        let omega = 2.0 * PI * freq_hz / sample_rate_hz;
+        let terms = (1..=max_harmonic.max(1))
+            .take_while(|k| *k as f64 * freq_hz < 0.49 * sample_rate_hz)
+            .count()
+            .max(1);
+        Self {
+            omega,
+            terms,
+            center: (len as f64 - 1.0) / 2.0,
+        }
+    }
+
+    /// Number of unknowns: DC plus two per sinusoidal term.
+    pub fn params(&self) -> usize {
+        1 + 2 * self.terms
+    }
+
+    /// Fundamental frequency in Hz at `sample_rate_hz`.
+    pub fn freq_hz(&self, sample_rate_hz: f64) -> f64 {
+        self.omega * sample_rate_hz / (2.0 * PI)
+    }
+}
+
+/// The fitted parameters of one channel.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ToneFit {
+    /// DC offset (full scale 1.0).
+    pub dc: f64,
+    /// Cosine coefficients, fundamental first.
+    pub cos: Vec<f64>,
+    /// Sine coefficients, fundamental first.
+    pub sin: Vec<f64>,
+    /// Σx² over the record.
+    pub sum_sq: f64,
+    /// Samples in the record.
+    pub samples: usize,
+    /// Variance factor of one quadrature part of the fundamental: the diagonal
+    /// of the inverse Gram matrix (≈ 2/L for a long record).
+    pub quadrature_var_factor: f64,
+}
+
+impl ToneFit {
+    /// Peak amplitude of term `k` (0 = fundamental).
+    pub fn amplitude(&self, k: usize) -> f64 {
+        self.cos[k].hypot(self.sin[k])
+    }
+
+    /// Peak amplitude of the fundamental.
+    pub fn fundamental(&self) -> f64 {
+        self.amplitude(0)
+    }
+
+    /// Phase of term `k` in radians, as `a·cos(kωt + φ)`.
+    pub fn phase(&self, k: usize) -> f64 {
+        (-self.sin[k]).atan2(self.cos[k])
+    }
+
+    /// Model value at time `t` (samples from the centre) for angular frequency `omega`.
+    pub fn value_at(&self, omega: f64, t: f64) -> f64 {
+        let mut v = self.dc;
+        for k in 0..self.cos.len() {
+            let (s, c) = ((k + 1) as f64 * omega * t).sin_cos();
+            v += self.cos[k] * c + self.sin[k] * s;
+        }
+        v
+    }
+}
+
+/// Block buffers for the basis columns.
+struct BasisBlock {
+    cos: Vec<Vec<f64>>,
+    sin: Vec<Vec<f64>>,
+}
+
+impl BasisBlock {
+    fn new(terms: usize) -> Self {
+        Self {
+            cos: vec![vec![0.0; BLOCK]; terms],
+            sin: vec![vec![0.0; BLOCK]; terms],
+        }
+    }
+
+    fn fill(&mut self, model: &ToneModel, n0: usize, len: usize) {
+        fill_harmonics(
+            model.omega,
+            model.center,
+            n0,
+            len,
+            &mut self.cos,
+            &mut self.sin,
+        );
+    }
+
+    /// Column `p` of the basis `[1, cos1, sin1, cos2, sin2, …]`, or `None` for DC.
+    fn column(&self, p: usize) -> Option<&[f64]> {
+        match p {
+            0 => None,
+            _ => {
+                let k = (p - 1) / 2;
+                Some(if p % 2 == 1 {
+                    &self.cos[k]
+                } else {
+                    &self.sin[k]
+                })
+            }
+        }
+    }
+}
+
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(x, y)| x * y).sum()
+}
+
+fn dot_f32(x: &[f32], b: &[f64]) -> f64 {
+    x.iter().zip(b).map(|(x, y)| f64::from(*x) * y).sum()
+}
+
+/// Gram matrix of the model's basis over `len` samples.
+fn gram(model: &ToneModel, len: usize) -> Vec<f64> {
+    let p = model.params();
+    let mut g = vec![0.0; p * p];
+    let mut basis = BasisBlock::new(model.terms);
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        g[0] += m as f64;
+        for i in 1..p {
+            let ci = &basis.column(i).unwrap()[..m];
+            g[i] += ci.iter().sum::<f64>();
+            for j in i..p {
+                g[i * p + j] += dot(ci, &basis.column(j).unwrap()[..m]);
+            }
+        }
+        n0 += m;
+    }
+    for i in 0..p {
+        for j in 0..i {
+            g[i * p + j] = g[j * p + i];
+        }
+    }
+    g
+}
+
+/// Fit `model` to every channel at once. All channels must have the same length.
+///
+/// # Panics
+/// When the channels differ in length.
+pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
+    let len = channels.first().map_or(0, |c| c.len());
+    assert!(
+        channels.iter().all(|c| c.len() == len),
+        "channels differ in length"
+    );
+    let p = model.params();
+    if len < 2 * p + 2 {
+        return Err(FitError::TooShort {
+            samples: len,
+            params: p,
+        });
+    }
+    let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
+        freq_hz: model.omega / (2.0 * PI),
+    })?;
+    let var_factor = chol.inverse_diagonal(1).max(chol.inverse_diagonal(2));
+    let mut proj = vec![vec![0.0; p]; channels.len()];
+    let mut sum_sq = vec![0.0; channels.len()];
+    let mut basis = BasisBlock::new(model.terms);
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for (c, x) in channels.iter().enumerate() {
+            let x = &x[n0..n0 + m];
+            let b = &mut proj[c];
+            b[0] += x.iter().map(|v| f64::from(*v)).sum::<f64>();
+            sum_sq[c] += x.iter().map(|v| f64::from(*v) * f64::from(*v)).sum::<f64>();
+            for (i, bi) in b.iter_mut().enumerate().skip(1) {
+                *bi += dot_f32(x, &basis.column(i).unwrap()[..m]);
+            }
+        }
+        n0 += m;
+    }
+    Ok(proj
+        .iter()
+        .zip(sum_sq)
+        .map(|(b, ss)| {
+            let theta = chol.solve(b);
+            ToneFit {
+                dc: theta[0],
+                cos: theta[1..].iter().step_by(2).copied().collect(),
+                sin: theta[2..].iter().step_by(2).copied().collect(),
+                sum_sq: ss,
+                samples: len,
+                quadrature_var_factor: var_factor,
+            }
+        })
+        .collect())
+}
+
+/// Explicit residual `x − model` of one channel, mixed down to baseband by
+/// `e^{−jωt}`: returns the residual's sum of squares and fills `baseband`
+/// with `(re, im)` pairs (one per sample).
+pub fn residual_baseband(
+    x: &[f32],
+    fit: &ToneFit,
+    model: &ToneModel,
+    baseband: &mut Vec<(f64, f64)>,
+) -> f64 {
+    let len = x.len();
+    baseband.clear();
+    baseband.reserve(len);
+    let mut basis = BasisBlock::new(model.terms);
+    let mut ss = 0.0;
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for i in 0..m {
+            let mut v = fit.dc;
+            for k in 0..model.terms {
+                v += fit.cos[k] * basis.cos[k][i] + fit.sin[k] * basis.sin[k][i];
+            }
+            let r = f64::from(x[n0 + i]) - v;
+            ss += r * r;
+            baseband.push((r * basis.cos[0][i], -r * basis.sin[0][i]));
+        }
+        n0 += m;
+    }
+    ss
+}
+
+/// Result of a frequency estimate.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FrequencyFit {
+    /// Estimated frequency in Hz.
+    pub freq_hz: f64,
+    /// Gauss-Newton iterations used.
+    pub iterations: usize,
+    /// The model at the estimated frequency.
+    pub model: ToneModel,
+}
+
+/// Coarse frequency of the strongest component within `search` (relative)
+/// of `nominal_hz`: Hann-windowed spectrum, peak bin, parabolic interpolation
+/// of the log magnitude.
+pub fn coarse_frequency(
+    x: &[f32],
+    sample_rate_hz: f64,
+    nominal_hz: f64,
+    search: f64,
+) -> Result<f64, FitError> {
+    let len = x.len();
+    let no_tone = FitError::NoTone {
+        nominal_hz,
+        search_pct: search * 100.0,
+    };
+    if len < 16 {
+        return Err(no_tone);
+    }
+    let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len as f64;
+    let w = super::window::HANN;
+    let mut input: Vec<f64> = x
+        .iter()
+        .enumerate()
+        .map(|(n, v)| (f64::from(*v) - mean) * w.value(n, len))
+        .collect();
+    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);
+    let mut spectrum = fft.make_output_vec();
+    fft.process(&mut input, &mut spectrum)
+        .map_err(|_| no_tone.clone())?;
+    let bin_hz = sample_rate_hz / len as f64;
+    let lo = (((nominal_hz * (1.0 - search)) / bin_hz).floor() as isize - 2).max(1) as usize;
+    let hi = ((((nominal_hz * (1.0 + search)) / bin_hz).ceil() as usize) + 2)
+        .min(spectrum.len().saturating_sub(2));
+    if lo >= hi {
+        return Err(no_tone);
+    }
+    let mag = |i: usize| spectrum[i].norm_sqr().max(1e-300).ln();
+    let peak = (lo..=hi)
+        .max_by(|a, b| spectrum[*a].norm_sqr().total_cmp(&spectrum[*b].norm_sqr()))
+        .ok_or(no_tone.clone())?;
+    if spectrum[peak].norm_sqr() <= 0.0 {
+        return Err(no_tone);
+    }
+    let (a, b, c) = (mag(peak - 1), mag(peak), mag(peak + 1));
+    let denom = a - 2.0 * b + c;
+    let delta = if denom.abs() > 0.0 {
+        (0.5 * (a - c) / denom).clamp(-0.5, 0.5)
+    } else {
+        0.0
+    };
+    Ok((peak as f64 + delta) * bin_hz)
+}
+
+/// Four-parameter fit (with harmonics): estimate the frequency of the tone
+/// near `nominal_hz` by Gauss-Newton iterations on the full model, starting
+/// from the spectral peak. `search` is the relative half-width searched
+/// (0.01 for ±1 %).
+pub fn estimate_frequency(
+    x: &[f32],
+    sample_rate_hz: f64,
+    nominal_hz: f64,
+    search: f64,
+    max_harmonic: usize,
+) -> Result<FrequencyFit, FitError> {
+    let len = x.len();
+    let f0 = coarse_frequency(x, sample_rate_hz, nominal_hz, search)?;
+    let mut model = ToneModel::new(f0, sample_rate_hz, len, max_harmonic);
+    let scale = len as f64 / 2.0;
+    let mut iterations = 0;
+    for _ in 0..30 {
+        iterations += 1;
+        let fit = &fit_tones(&[x], &model)?[0];
+        let delta = gauss_newton_step(x, &model, fit, scale)?;
+        model.omega += delta;
+        if (delta * len as f64).abs() < 1e-9 {
+            break;
+        }
+    }
+    let freq_hz = model.freq_hz(sample_rate_hz);
+    if !freq_hz.is_finite() || (freq_hz / nominal_hz - 1.0).abs() > search * 1.5 {
+        return Err(FitError::NoTone {
+            nominal_hz,
+            search_pct: search * 100.0,
+        });
+    }
+    Ok(FrequencyFit {
+        freq_hz,
+        iterations,
+        model,
+    })
+}
+
+/// One Gauss-Newton step: the change of ω (radians per sample) that best
+/// explains what the fit at the current ω leaves over.
+fn gauss_newton_step(
+    x: &[f32],
+    model: &ToneModel,
+    fit: &ToneFit,
+    scale: f64,
+) -> Result<f64, FitError> {
+    let len = x.len();
+    let p = model.params() + 1;
+    let mut g = vec![0.0; p * p];
+    let mut b = vec![0.0; p];
+    let mut basis = BasisBlock::new(model.terms);
+    let mut col = vec![vec![0.0; BLOCK]; p];
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for i in 0..m {
+            let t = (n0 + i) as f64 - model.center;
+            col[0][i] = 1.0;
+            let mut d = 0.0;
+            for k in 0..model.terms {
+                let (c, s) = (basis.cos[k][i], basis.sin[k][i]);
+                col[1 + 2 * k][i] = c;
+                col[2 + 2 * k][i] = s;
+                d += (k + 1) as f64 * (-fit.cos[k] * s + fit.sin[k] * c);
+            }
+            col[p - 1][i] = d * t / scale;
+        }
+        let xs = &x[n0..n0 + m];
+        for r in 0..p {
+            b[r] += dot_f32(xs, &col[r][..m]);
+            for c in r..p {
+                g[r * p + c] += dot(&col[r][..m], &col[c][..m]);
+            }
+        }
+        n0 += m;
+    }
+    for r in 0..p {
+        for c in 0..r {
+            g[r * p + c] = g[c * p + r];
+        }
+    }
+    let chol = Cholesky::new(&g, p).ok_or(FitError::Degenerate {
+        freq_hz: model.omega / (2.0 * PI),
+    })?;
+    Ok(chol.solve(&b)[p - 1] / scale)
+}

@@ -1,0 +1,264 @@
+//! Multichannel WAV captures: read whole captures (deinterleaved, full scale
+//! ±1.0) and write them in any of the run format's sample formats.
+
+use super::RunError;
+use std::io::{Read, Seek, Write};
+use std::path::Path;
+
+/// Sample formats a run folder may hold.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum WavFormat {
+    /// 16-bit integer PCM.
+    Int16,
+    /// 24-bit integer PCM.
+    Int24,
+    /// 32-bit integer PCM.
+    Int32,
+    /// 32-bit IEEE float.
+    Float32,
+}
+
+impl WavFormat {
+    fn spec(self, channels: u16, sample_rate: u32) -> hound::WavSpec {
+        let (bits_per_sample, sample_format) = match self {
+            WavFormat::Int16 => (16, hound::SampleFormat::Int),
+            WavFormat::Int24 => (24, hound::SampleFormat::Int),
+            WavFormat::Int32 => (32, hound::SampleFormat::Int),
+            WavFormat::Float32 => (32, hound::SampleFormat::Float),
+        };
+        hound::WavSpec {
+            channels,
+            sample_rate,
+            bits_per_sample,
+            sample_format,
+        }
+    }
+}
+
+/// One capture, deinterleaved.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Capture {
+    /// Sample rate in Hz.
+    pub sample_rate_hz: u32,
+    /// One vector per channel, full scale ±1.0.
+    pub channels: Vec<Vec<f32>>,
+}
+
+impl Capture {
+    /// Frames (samples per channel).
+    pub fn frames(&self) -> usize {
+        self.channels.first().map_or(0, Vec::len)
+    }
+}
+
+/// Read a capture from `path`, checking it against the manifest's channel
+/// count and sample rate. Every problem is reported with the file's path.
+pub fn read_capture(
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+) -> Result<Capture, RunError> {
+    let file = std::fs::File::open(path).map_err(|e| RunError::io(path, e))?;
+    read_capture_from(
+        std::io::BufReader::new(file),
+        path,
+        channels,
+        sample_rate_hz,
+    )
+}
+
+/// Like [`read_capture`] over any reader; `path` names it in messages.
+pub fn read_capture_from<R: Read>(
+    reader: R,
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+) -> Result<Capture, RunError> {
+    let bad = |message: String| RunError::Wav {
+        path: path.to_path_buf(),
+        message,
+    };
+    let mut wav =
+        hound::WavReader::new(reader).map_err(|e| bad(format!("not a readable WAV file: {e}")))?;
+    let spec = wav.spec();
+    if usize::from(spec.channels) != channels {
+        return Err(bad(format!(
+            "has {} channels but run.json lists {channels}",
+            spec.channels
+        )));
+    }
+    if spec.sample_rate != sample_rate_hz {
+        return Err(bad(format!(
+            "sample rate is {} Hz but run.json says {sample_rate_hz} Hz",
+            spec.sample_rate
+        )));
+    }
+    let total = wav.len() as usize;
+    if total == 0 {
+        return Err(bad("holds no samples (empty capture)".into()));
+    }
+    if total % channels != 0 {
+        return Err(bad(format!(
+            "data holds {total} samples, not a whole number of {channels}-channel frames"
+        )));
+    }
+    let frames = total / channels;
+    let mut out = vec![Vec::with_capacity(frames); channels];
+    let truncated = |read: usize, e: hound::Error| {
+        bad(format!(
+            "truncated or unreadable after frame {} of {frames} ({e})",
+            read / channels
+        ))
+    };
+    match (spec.sample_format, spec.bits_per_sample) {
+        (hound::SampleFormat::Float, 32) => {
+            for (i, s) in wav.samples::<f32>().enumerate() {
+                let v = s.map_err(|e| truncated(i, e))?;
+                if !v.is_finite() {
+                    return Err(bad(format!(
+                        "non-finite sample ({v}) at frame {} channel {}",
+                        i / channels,
+                        i % channels + 1
+                    )));
+                }
+                out[i % channels].push(v);
+            }
+        }
+        (hound::SampleFormat::Int, bits @ (16 | 24 | 32)) => {
+            let scale = 1.0 / f64::from(1u32 << (bits - 1));
+            for (i, s) in wav.samples::<i32>().enumerate() {
+                let v = s.map_err(|e| truncated(i, e))?;
+                out[i % channels].push((f64::from(v) * scale) as f32);
+            }
+        }
+        (fmt, bits) => return Err(bad(format!(
+            "sample format {bits}-bit {fmt:?} is not one of 16/24/32-bit integer or 32-bit float"
+        ))),
+    }
+    if out[channels - 1].len() != frames {
+        return Err(bad(format!(
+            "truncated: {} of {frames} frames present",
+            out[channels - 1].len()
+        )));
+    }
+    Ok(Capture {
+        sample_rate_hz,
+        channels: out,
+    })
+}
+
+/// Write deinterleaved channels (full scale ±1.0) to `path` in `format`.
+/// Integer formats round to the nearest code and clip at full scale.
+///
+/// # Panics
+/// When the channels differ in length.
+pub fn write_capture(
+    path: &Path,
+    channels: &[Vec<f64>],
+    sample_rate_hz: u32,
+    format: WavFormat,
+) -> Result<(), RunError> {
+    let file = std::fs::File::create(path).map_err(|e| RunError::io(path, e))?;
+    write_capture_to(
+        std::io::BufWriter::new(file),
+        path,
+        channels,
+        sample_rate_hz,
+        format,
+    )
+}
+
+/// Like [`write_capture`] over any seekable writer.
+pub fn write_capture_to<W: Write + Seek>(
+    writer: W,
+    path: &Path,
+    channels: &[Vec<f64>],
+    sample_rate_hz: u32,
+    format: WavFormat,
+) -> Result<(), RunError> {
+    let frames = channels.first().map_or(0, Vec::len);
+    assert!(
+        channels.iter().all(|c| c.len() == frames),
+        "channels differ in length"
+    );
+    let err = |e: hound::Error| RunError::Wav {
+        path: path.to_path_buf(),
+        message: format!("cannot write: {e}"),
+    };
+    let spec = format.spec(channels.len() as u16, sample_rate_hz);
+    let mut wav = hound::WavWriter::new(writer, spec).map_err(err)?;
+    let int_scale = f64::from(1u32 << (spec.bits_per_sample - 1).min(31));
+    for n in 0..frames {
+        for ch in channels {
+            let v = ch[n];
+            match format {
+                WavFormat::Float32 => wav.write_sample(v as f32),
+                _ => {
+                    let code = (v * int_scale).round().clamp(-int_scale, int_scale - 1.0);
+                    wav.write_sample(code as i32)
+                }
+            }
+            .map_err(err)?;
+        }
+    }
+    wav.finalize().map_err(err)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Cursor;
+
+    fn round_trip(format: WavFormat) -> Capture {
+        let chans = vec![vec![0.5, -0.25, 0.0, -1.0], vec![0.125, 0.999, -0.5, 0.25]];
+        let mut buf = Cursor::new(Vec::new());
+        write_capture_to(&mut buf, Path::new("mem.wav"), &chans, 48_000, format).unwrap();
+        buf.set_position(0);
+        read_capture_from(buf, Path::new("mem.wav"), 2, 48_000).unwrap()
+    }
+
+    #[test]
+    fn round_trips_every_format() {
+        for f in [
+            WavFormat::Int16,
+            WavFormat::Int24,
+            WavFormat::Int32,
+            WavFormat::Float32,
+        ] {
+            let c = round_trip(f);
+            assert_eq!(c.frames(), 4);
+            assert_eq!(c.channels[0], vec![0.5, -0.25, 0.0, -1.0], "{f:?}");
+            assert!((c.channels[1][1] - 0.999).abs() < 1e-4, "{f:?}");
+        }
+    }
+
+    #[test]
+    fn names_the_problem() {
+        let chans = vec![vec![0.0; 10]; 2];
+        let mut buf = Cursor::new(Vec::new());
+        write_capture_to(
+            &mut buf,
+            Path::new("x.wav"),
+            &chans,
+            48_000,
+            WavFormat::Int16,
+        )
+        .unwrap();
+        let bytes = buf.into_inner();
+        let e = read_capture_from(Cursor::new(bytes.clone()), Path::new("x.wav"), 3, 48_000)
+            .unwrap_err();
+        assert!(
+            e.to_string()
+                .contains("has 2 channels but run.json lists 3"),
+            "{e}"
+        );
+        let e = read_capture_from(Cursor::new(bytes.clone()), Path::new("x.wav"), 2, 44_100)
+            .unwrap_err();
+        assert!(e.to_string().contains("sample rate is 48000 Hz"), "{e}");
+        let cut = &bytes[..bytes.len() - 7];
+        let e = read_capture_from(Cursor::new(cut.to_vec()), Path::new("x.wav"), 2, 48_000)
+            .unwrap_err();
+        assert!(e.to_string().starts_with("x.wav: truncated"), "{e}");
+    }
+}
