@@ -132,9 +132,11 @@ pub fn read_capture_from<R: Read>(
                 out[i % channels].push((f64::from(v) * scale) as f32);
             }
         }
-        (fmt, bits) => return Err(bad(format!(
+        (fmt, bits) => {
+            return Err(bad(format!(
             "sample format {bits}-bit {fmt:?} is not one of 16/24/32-bit integer or 32-bit float"
-        ))),
+        )))
+        }
     }
     if out[channels - 1].len() != frames {
         return Err(bad(format!(
