@@ -12,6 +12,9 @@ pub enum SteadyError {
         /// Frames in the capture.
         frames: usize,
     },
+    /// The channel holds digital silence.
+    #[error("silent, no tone")]
+    Silent,
     /// No span of constant level long enough was found.
     #[error("no steady tone: the longest span of constant level is {found_s:.3} s, at least {needed_s:.3} s is needed")]
     NotSteady {
@@ -55,6 +58,9 @@ pub fn steady_range(
     // The tone's level: a high percentile, robust to a few spikes and to
     // silence and ramps taking up most of the capture.
     let reference = sorted[(blocks * 9) / 10];
+    if reference < -250.0 {
+        return Err(SteadyError::Silent);
+    }
     // Spread of the loud blocks sets the tolerance (noise on a weak tone).
     let loud: Vec<f64> = level
         .iter()
