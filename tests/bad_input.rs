@@ -200,6 +200,10 @@ fn results_are_never_lost_or_written_into_the_run() {
     assert!(e.contains("lies inside the run folder"), "{e}");
     let e = w.fails(&["analyze", "run", "--out", "run", "--force"]);
     assert!(e.contains("lies inside the run folder"), "{e}");
+    // Nor over a folder that holds the run.
+    let e = w.fails(&["analyze", "run", "--out", ".", "--force"]);
+    assert!(e.contains("holds the run folder"), "{e}");
+    assert!(w.path("run/run.json").exists());
 }
 
 #[test]
@@ -207,7 +211,7 @@ fn bad_model_files() {
     let w = Workdir::new();
     let m = w.model("m.toml", &[("bits = 24", "bits = 24\ncolour = \"red\"")]);
     let e = w.fails(&["simulate", "--out", "run", "--model", m.to_str().unwrap()]);
-    assert!(e.contains("m.toml: line 19") && e.contains("colour"), "{e}");
+    assert!(e.contains("m.toml: line 20") && e.contains("colour"), "{e}");
     let m = w.model("m2.toml", &[("channels = 8", "channels = 0")]);
     let e = w.fails(&["simulate", "--out", "run", "--model", m.to_str().unwrap()]);
     assert!(e.contains("front_end.channels = 0"), "{e}");

@@ -30,6 +30,9 @@ pub struct AnalysisConfig {
     /// Warn when the aggressor's tone lies less than this many dB above its
     /// own detection limit.
     pub weak_aggressor_margin_db: f64,
+    /// Warn when the aggressor's tone lies this many dB below the nominal
+    /// level of run.json (a wrong patch, a muted output).
+    pub below_nominal_db: f64,
     /// Warn when a victim's residual exceeds its noise floor by this many dB.
     pub spurious_margin_db: f64,
     /// Warn when the aggressor's tone-to-residual ratio is below this, dB.
@@ -44,6 +47,7 @@ impl Default for AnalysisConfig {
             frequency_search: 0.01,
             clip_level: 0.999,
             weak_aggressor_margin_db: 40.0,
+            below_nominal_db: 20.0,
             spurious_margin_db: 10.0,
             aggressor_purity_db: 40.0,
         }
@@ -353,7 +357,19 @@ fn check_drive(
             ),
         );
     }
-    if let Some(sigma) = agg.quadrature_sigma {
+    let below_nominal = drive.level_dbfs - amplitude_to_dbfs(agg.amplitude);
+    if below_nominal > config.below_nominal_db {
+        warn(
+            "weak-aggressor",
+            Some(drive.channel),
+            format!(
+                "aggressor tone on channel {} measures {:.1} dBFS, {below_nominal:.1} dB below the nominal {:.1} dBFS: check the patch, the output level and any mute",
+                drive.channel,
+                amplitude_to_dbfs(agg.amplitude),
+                drive.level_dbfs
+            ),
+        );
+    } else if let Some(sigma) = agg.quadrature_sigma {
         let margin =
             amplitude_to_dbfs(agg.amplitude) - amplitude_to_dbfs(config.detection_factor * sigma);
         if margin < config.weak_aggressor_margin_db {

@@ -13,7 +13,7 @@ use std::process::ExitCode;
 
 /// Exit codes automation can rely on.
 pub mod exit {
-    /// The command did what was asked (and any verdict passed).
+    /// The command did what was asked.
     pub const OK: u8 = 0;
     /// Bad input, a missing file, an I/O or device problem.
     pub const ERROR: u8 = 1;
@@ -24,10 +24,10 @@ pub mod exit {
 /// Channel-isolation and leakage measurement for multichannel sound cards
 /// and data-acquisition front ends.
 ///
-/// septum drives a test tone into one input at a time while the others are
-/// terminated, records every input at once, and computes the separation
-/// (crosstalk with the sign flipped) for every pair, each channel's noise
-/// floor and the leakage matrix per test frequency.
+/// From captures in which a test tone drove one input at a time while the
+/// others were terminated, septum computes the separation (crosstalk with
+/// the sign flipped) for every pair, each channel's noise floor and the
+/// leakage matrix per test frequency.
 #[derive(Debug, Parser)]
 #[command(name = "septum", version, propagate_version = true)]
 pub struct Cli {

@@ -102,7 +102,8 @@ mod tests {
             let (j, g) = nudge_coherent(f, 48_000.0, 65_536, 5.0).unwrap();
             assert_eq!(j % 2, 1);
             assert!(mains_distance(g) >= 5.0);
-            assert!((g / f - 1.0).abs() < 0.1, "{f} -> {g}");
+            // 50 Hz itself must move to 44.68 Hz, 10.6 % away.
+            assert!((g / f - 1.0).abs() < 0.11, "{f} -> {g}");
         }
     }
 }

@@ -3,28 +3,46 @@
 //! A victim's fitted tone must be told apart from the noise that lands in the
 //! fit. That noise is estimated where it matters, next to the test frequency:
 //! the residual is mixed down by `e^{−jωt}`, and its DFT at the offsets
-//! `f + k·fs/L` (`2 ≤ |k| ≤ 41`, away from the tone's own bin) gives, bin by
+//! `f + k·fs/L` (`3 ≤ |k| ≤ 41`, away from the tone's own bin) gives, bin by
 //! bin, what a fit at a neighbouring frequency would return. Their mean
-//! square is the quadrature variance of a fit at `f`.
+//! square is the quadrature variance of a fit at `f`. A Hann window keeps
+//! discrete lines (mains harmonics) a few dozen bins away from leaking into
+//! the bins next to `f`, as they do not leak into the fit itself; the bins
+//! are normalised by the window's energy, so white noise reads the same.
 //!
 //! Discrete lines (mains harmonics) near `f` would inflate a plain mean, so
-//! the estimate is a trimmed mean: the lowest 80 % of the bins, scaled by the
-//! mean of the lower 80 % of an exponential distribution (the law of `|Y|²`
-//! for Gaussian noise), which makes it unbiased for white noise.
+//! bins are censored: starting from the median (ln 2 times the mean for the
+//! exponential law of `|Y|²` under Gaussian noise), bins above four times the
+//! running mean are set aside and the mean of the rest is divided by the
+//! truncated exponential's mean below that point; two rounds settle it. For
+//! white noise this is unbiased; a line only raises the bins it occupies.
 
 use rustfft::num_complex::Complex;
 use rustfft::FftPlanner;
 
 /// Offsets (in bins of `fs/L`) used around the test frequency.
-pub const OFFSETS: std::ops::RangeInclusive<usize> = 2..=41;
+pub const OFFSETS: std::ops::RangeInclusive<usize> = 3..=41;
 
-/// Fraction of the bins kept (the quietest).
-pub const KEEP: f64 = 0.8;
+/// Bins above this multiple of the estimated mean count as lines.
+pub const CENSOR: f64 = 4.0;
 
-/// Mean of an Exp(1) variable below its `KEEP` quantile: `(1 − (1 − KEEP)·(1 + q)) / KEEP`, `q = −ln(1 − KEEP)`.
-fn trimmed_exponential_mean() -> f64 {
-    let q = -(1.0 - KEEP).ln();
-    (1.0 - (1.0 - KEEP) * (1.0 + q)) / KEEP
+/// Mean of an Exp(1) variable below `t`: `(1 − e^{−t}(1 + t)) / (1 − e^{−t})`.
+fn truncated_exponential_mean(t: f64) -> f64 {
+    (1.0 - (-t).exp() * (1.0 + t)) / (1.0 - (-t).exp())
+}
+
+/// Mean power of the noise among `power` (sorted ascending), lines set aside.
+fn censored_mean(power: &[f64]) -> f64 {
+    let mut mean = power[power.len() / 2] / std::f64::consts::LN_2;
+    for _ in 0..2 {
+        let limit = CENSOR * mean;
+        let kept: Vec<f64> = power.iter().copied().filter(|p| *p <= limit).collect();
+        if kept.is_empty() {
+            break;
+        }
+        mean = kept.iter().sum::<f64>() / kept.len() as f64 / truncated_exponential_mean(CENSOR);
+    }
+    mean
 }
 
 /// Standard deviation of each quadrature part of a fitted tone's amplitude,
@@ -43,7 +61,17 @@ pub fn quadrature_sigma(
         return None;
     }
     let bin_hz = sample_rate_hz / len as f64;
-    let mut buf: Vec<Complex<f64>> = baseband.iter().map(|(r, i)| Complex::new(*r, *i)).collect();
+    let window = crate::dsp::window::HANN;
+    let mut energy = 0.0;
+    let mut buf: Vec<Complex<f64>> = baseband
+        .iter()
+        .enumerate()
+        .map(|(n, (r, i))| {
+            let w = window.value(n, len);
+            energy += w * w;
+            Complex::new(r * w, i * w)
+        })
+        .collect();
     planner.plan_fft_forward(len).process(&mut buf);
     let mut power = Vec::with_capacity(2 * OFFSETS.end());
     for k in OFFSETS {
@@ -62,8 +90,8 @@ pub fn quadrature_sigma(
         return None;
     }
     power.sort_by(f64::total_cmp);
-    let keep = ((power.len() as f64 * KEEP).round() as usize).max(1);
-    let mean = power[..keep].iter().sum::<f64>() / keep as f64 / trimmed_exponential_mean();
-    // |C_k|² = 4|Y_k|²/L² has mean 2σq².
-    Some((2.0 * mean).sqrt() / len as f64)
+    let mean = censored_mean(&power);
+    // White noise of variance σ² gives E|Y_k|² = σ²·Σw²; each quadrature
+    // part of an L-sample fit has variance 2σ²/L.
+    Some((2.0 * mean / (energy * len as f64)).sqrt())
 }

@@ -3,7 +3,7 @@
 //! pair of inputs) that can synthesise whole run folders and states the exact
 //! figures an analysis should recover.
 //!
-//! The model file is TOML; see `procedures/front-end-model.toml` for a
+//! The model file is TOML; see `examples/models/mossgate-fe8.toml` for a
 //! commented example of every key. [`FrontEndModel::resolve`] turns the
 //! file's defaults, spreads and per-channel or per-pair overrides into one
 //! explicit table ([`Resolved`]), drawn from the model's seed; synthesis and
@@ -311,7 +311,7 @@ impl FrontEndModel {
                 .map(|s| {
                     format!(
                         "line {}: ",
-                        text[..s.start.min(text.len())].lines().count().max(1)
+                        text[..s.start.min(text.len())].matches('\n').count() + 1
                     )
                 })
                 .unwrap_or_default();
@@ -370,9 +370,9 @@ impl FrontEndModel {
                 ));
             }
         }
-        if !(st.level_dbfs <= -0.5 && st.level_dbfs > -120.0) {
+        if !(st.level_dbfs <= -0.5 && st.level_dbfs >= -140.0) {
             return Err(format!(
-                "stimulus.level_dbfs = {} must lie between -120 and -0.5 dBFS",
+                "stimulus.level_dbfs = {} must lie between -140 and -0.5 dBFS",
                 st.level_dbfs
             ));
         }

@@ -53,6 +53,12 @@ impl Staging {
                     run.display()
                 )));
             }
+            if run.starts_with(&abs) {
+                return Err(refuse(format!(
+                    "holds the run folder {}; results may not replace or surround it",
+                    run.display()
+                )));
+            }
         }
         if abs.exists() {
             if !abs.is_dir() {
