@@ -5,6 +5,7 @@ use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::fit::{estimate_frequency, fit_tones, residual_baseband, ToneModel};
 use crate::dsp::noise::quadrature_sigma;
+use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Capture, Drive};
 use rustfft::FftPlanner;
 use serde::Serialize;
@@ -50,7 +51,14 @@ pub struct CaptureAnalysis {
     pub tone_hz: Option<f64>,
     /// Per channel, in channel order.
     pub channels: Vec<ChannelFit>,
+    /// Spectra of the analysed span (drive captures): the aggressor's and the
+    /// victim's with the strongest tone, as `(channel, spectrum)`.
+    #[serde(skip)]
+    pub spectra: Vec<(u32, Spectrum)>,
 }
+
+/// Buckets of the condensed spectra kept for reports.
+pub const SPECTRUM_BUCKETS: usize = 1024;
 
 /// Analyse one capture. `file` names it in messages.
 pub fn analyze_capture(
@@ -85,7 +93,7 @@ pub fn analyze_capture(
         Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
         None => None,
     };
-    let channels = slices
+    let channels: Vec<ChannelFit> = slices
         .iter()
         .enumerate()
         .map(|(i, x)| {
@@ -132,6 +140,19 @@ pub fn analyze_capture(
             }
         })
         .collect();
+    let mut spectra = Vec::new();
+    if let Some(d) = drive {
+        let loudest = channels
+            .iter()
+            .filter(|c| c.channel != d.channel)
+            .max_by(|a, b| a.amplitude.total_cmp(&b.amplitude))
+            .map(|c| c.channel);
+        for ch in std::iter::once(d.channel).chain(loudest) {
+            if let Some(s) = log_spectrum(slices[ch as usize - 1], fs, SPECTRUM_BUCKETS) {
+                spectra.push((ch, s));
+            }
+        }
+    }
     Ok(CaptureAnalysis {
         file: file.to_string(),
         drive,
@@ -140,5 +161,6 @@ pub fn analyze_capture(
         span_frames: span.len(),
         tone_hz: model.map(|m: ToneModel| m.freq_hz(fs)),
         channels,
+        spectra,
     })
 }

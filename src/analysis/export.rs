@@ -36,6 +36,13 @@ pub fn write_results(results: &RunResults, dir: &Path) -> Result<(), RunError> {
     for f in results.manifest.frequencies() {
         write_leakage(results, f, &dir.join(leakage_file_name(f)))?;
     }
+    for s in &results.per_frequency {
+        write_spectrum(
+            results,
+            s.frequency_hz,
+            &dir.join(spectrum_file_name(s.frequency_hz)),
+        )?;
+    }
     let path = dir.join("summary.json");
     let text = serde_json::to_string_pretty(&summary(results)).expect("summary serialises");
     std::fs::write(&path, text + "\n").map_err(|e| RunError::io(&path, e))
@@ -132,6 +139,51 @@ fn write_leakage(r: &RunResults, frequency_hz: f64, path: &Path) -> Result<(), R
     write_rows(path, std::iter::once(header.collect()).chain(rows))
 }
 
+/// The file name of the spectra at a nominal frequency.
+pub fn spectrum_file_name(frequency_hz: f64) -> String {
+    format!("spectrum-{frequency_hz}Hz.csv")
+}
+
+/// The capture of the worst pair at `frequency_hz` and its spectra
+/// (aggressor first, then the victim with the strongest tone).
+fn spectra_at(r: &RunResults, frequency_hz: f64) -> Option<&super::CaptureAnalysis> {
+    let worst = &r
+        .per_frequency
+        .iter()
+        .find(|s| s.frequency_hz == frequency_hz)?
+        .worst;
+    r.captures
+        .iter()
+        .find(|c| c.file == worst.capture && c.spectra.len() == 2)
+}
+
+fn write_spectrum(r: &RunResults, frequency_hz: f64, path: &Path) -> Result<(), RunError> {
+    let Some(cap) = spectra_at(r, frequency_hz) else {
+        return Ok(());
+    };
+    let (a, v) = (&cap.spectra[0].1, &cap.spectra[1].1);
+    let header = [
+        "frequency_hz",
+        "aggressor_peak_dbfs",
+        "aggressor_mean_dbfs",
+        "victim_peak_dbfs",
+        "victim_mean_dbfs",
+    ];
+    let rows = (0..a.freq_hz.len().min(v.freq_hz.len())).map(|i| {
+        vec![
+            format!("{:.4}", a.freq_hz[i]),
+            format!("{:.3}", a.peak_dbfs[i]),
+            format!("{:.3}", a.mean_dbfs[i]),
+            format!("{:.3}", v.peak_dbfs[i]),
+            format!("{:.3}", v.mean_dbfs[i]),
+        ]
+    });
+    write_rows(
+        path,
+        std::iter::once(header.map(String::from).to_vec()).chain(rows),
+    )
+}
+
 /// The summary.json document.
 pub fn summary(r: &RunResults) -> Value {
     let m = &r.manifest;
@@ -167,6 +219,19 @@ pub fn summary(r: &RunResults) -> Value {
             "analysed_from_frame": c.span_start,
             "analysed_frames": c.span_frames,
         })).collect::<Vec<_>>(),
+        "spectra": r.per_frequency.iter().filter_map(|s| {
+            let cap = spectra_at(r, s.frequency_hz)?;
+            Some(json!({
+                "frequency_hz": s.frequency_hz,
+                "file": spectrum_file_name(s.frequency_hz),
+                "capture": cap.file,
+                "aggressor": cap.spectra[0].0,
+                "victim": cap.spectra[1].0,
+                "bin_enbw_hz": cap.spectra[0].1.bin_enbw_hz,
+                "window": "7-term Blackman-Harris",
+                "levels": "sine-calibrated bin levels in dBFS; peak and power mean over log-spaced buckets",
+            }))
+        }).collect::<Vec<_>>(),
         "warnings": r.warnings,
     })
 }

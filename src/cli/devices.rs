@@ -32,14 +32,22 @@ impl Caps {
             run = match run {
                 Some((a, b)) if c == b + 1 => Some((a, c)),
                 Some((a, b)) => {
-                    ch.push(if a == b { a.to_string() } else { format!("{a} to {b}") });
+                    ch.push(if a == b {
+                        a.to_string()
+                    } else {
+                        format!("{a} to {b}")
+                    });
                     Some((c, c))
                 }
                 None => Some((c, c)),
             };
         }
         let fmts: Vec<&str> = self.formats.iter().map(String::as_str).collect();
-        Some(format!("{} ch; {}; {lo} to {hi} Hz", ch.join(", "), fmts.join(", ")))
+        Some(format!(
+            "{} ch; {}; {lo} to {hi} Hz",
+            ch.join(", "),
+            fmts.join(", ")
+        ))
     }
 }
 
@@ -63,12 +71,18 @@ pub fn run(_args: Args) -> Result<u8> {
             let id = dev.id().map(|i| i.to_string()).unwrap_or_default();
             println!("  {name}  [{id}]");
             let mut caps = Caps::default();
-            dev.supported_input_configs().into_iter().flatten().for_each(|c| caps.add(&c));
+            dev.supported_input_configs()
+                .into_iter()
+                .flatten()
+                .for_each(|c| caps.add(&c));
             if let Some(l) = caps.line() {
                 println!("    inputs:  {l}");
             }
             let mut caps = Caps::default();
-            dev.supported_output_configs().into_iter().flatten().for_each(|c| caps.add(&c));
+            dev.supported_output_configs()
+                .into_iter()
+                .flatten()
+                .for_each(|c| caps.add(&c));
             if let Some(l) = caps.line() {
                 println!("    outputs: {l}");
             }
@@ -78,9 +92,13 @@ pub fn run(_args: Args) -> Result<u8> {
         if found == 0 {
             println!("no audio devices found.");
         }
-        println!("No JACK server answered. Without sound hardware, start a JACK server (for example");
+        println!(
+            "No JACK server answered. Without sound hardware, start a JACK server (for example"
+        );
         println!("`jackd --no-realtime -n bench -d dummy -r 48000 -C 8 -P 8` and");
-        println!("`export JACK_DEFAULT_SERVER=bench`), or use `septum demo` and `septum simulate`.");
+        println!(
+            "`export JACK_DEFAULT_SERVER=bench`), or use `septum demo` and `septum simulate`."
+        );
     }
     Ok(super::exit::OK)
 }

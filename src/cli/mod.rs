@@ -19,6 +19,13 @@ pub mod exit {
     pub const ERROR: u8 = 1;
     /// The command line itself was wrong (clap's usage errors).
     pub const USAGE: u8 = 2;
+    /// A verdict was asked for and something failed its limit or claim.
+    #[allow(dead_code)]
+    pub const FAIL: u8 = 3;
+    /// A verdict was asked for; nothing failed, but something could not be
+    /// decided within the measurement's uncertainty.
+    #[allow(dead_code)]
+    pub const INCONCLUSIVE: u8 = 4;
 }
 
 /// Channel-isolation and leakage measurement for multichannel sound cards

@@ -11,6 +11,7 @@ pub mod level;
 pub mod linalg;
 pub mod noise;
 pub mod osc;
+pub mod spectrum;
 pub mod window;
 
 pub use fit::{estimate_frequency, fit_tones, FrequencyFit, ToneFit, ToneModel};
