@@ -4,7 +4,7 @@
 
 use rand::{Rng, SeedableRng};
 use rand_distr::StandardNormal;
-use septum::dsp::fit::{fit_tones, residual_baseband, ToneModel};
+use septum::dsp::fit::{fit_tones, residual_into, ToneModel};
 use septum::dsp::freqs::{coherent, third_octave_exact};
 use septum::dsp::noise::quadrature_sigma;
 use septum::dsp::window::{BLACKMAN_HARRIS_4, BLACKMAN_HARRIS_7, HANN};
@@ -26,7 +26,7 @@ fn quantised_sine(bits: i32, len: usize, cycles: f64) -> (f64, f64) {
     let model = ToneModel::new(cycles, len as f64, len, 1);
     let fit = &fit_tones(&[&x], &model).unwrap()[0];
     let mut bb = Vec::new();
-    let ss = residual_baseband(&x, fit, &model, &mut bb);
+    let ss = residual_into(&x, fit, &model, &mut bb);
     let rms = (ss / len as f64).sqrt();
     (
         amplitude_to_dbfs(fit.fundamental()) - rms_to_dbfs(rms),
@@ -174,7 +174,7 @@ fn noise_only_fit_is_rayleigh() {
             .collect();
         let fit = &fit_tones(&[&x], &model).unwrap()[0];
         amp_sum += fit.fundamental();
-        residual_baseband(&x, fit, &model, &mut bb);
+        residual_into(&x, fit, &model, &mut bb);
         est_sum += quadrature_sigma(&bb, 997.0, 48_000.0, 1, &mut planner).unwrap();
     }
     let mean = amp_sum / 1000.0;
@@ -201,4 +201,65 @@ fn dbfs_convention() {
         / 48_000.0;
     assert!(rms_to_dbfs(sine_rms.sqrt()).abs() < 0.01);
     assert!((rms_to_dbfs(1.0) - 3.01).abs() < 0.01);
+}
+
+/// IEC 61672-1:2013 Table 3, frequency weighting A at the base-10 exact
+/// third-octave frequencies, rounded to 0.1 dB (table values from memory of
+/// the standard; the analytic form is the standard's Annex E).
+#[test]
+fn a_weighting_table() {
+    use septum::dsp::weighting::a_weighting_db;
+    let table = [
+        (-20, -70.4),
+        (-17, -50.5),
+        (-15, -39.4),
+        (-12, -26.2),
+        (-10, -19.1),
+        (-9, -16.1),
+        (-6, -8.6),
+        (-3, -3.2),
+        (-1, -0.8),
+        (0, 0.0),
+        (2, 1.0),
+        (3, 1.2),
+        (5, 1.2),
+        (6, 1.0),
+        (8, -0.1),
+        (9, -1.1),
+        (10, -2.5),
+        (12, -6.6),
+        (13, -9.3),
+    ];
+    for (x, db) in table {
+        let f = third_octave_exact(x);
+        let got = a_weighting_db(f);
+        assert!(
+            (got - db).abs() <= 0.051,
+            "{f:.1} Hz: {got:.3} dB vs table {db}"
+        );
+    }
+}
+
+/// Jitter-limited SNR −20·log10(2π·f·σt) (Analog Devices MT-007; Brannon
+/// 2004): 100 MHz with 100 fs → 84.04 dB, 10 MHz with 10 ps → 64.04 dB.
+#[test]
+fn jitter_limited_snr() {
+    use septum::dsp::level::jitter_snr_db;
+    assert!((jitter_snr_db(100e6, 100e-15) - 84.04).abs() < 0.01);
+    assert!((jitter_snr_db(10e6, 10e-12) - 64.04).abs() < 0.01);
+}
+
+/// ENOB from SINAD, (SINAD − 1.76)/6.02 (IEEE Std 1241, form from memory):
+/// 62 dB → 10.007 bits, 50 dB → 8.013 bits; and the IEEE 1241 form from the
+/// noise and distortion, log2(FSR/(NAD·√12)), agrees at full scale.
+#[test]
+fn enob_forms() {
+    use septum::dsp::level::{enob_from_nad, enob_from_sinad};
+    assert!((enob_from_sinad(62.0) - 10.007).abs() < 0.001);
+    assert!((enob_from_sinad(50.0) - 8.013).abs() < 0.001);
+    // Full-scale sine (rms 1/√2) with NAD such that SINAD = 62 dB.
+    let nad = (1.0 / 2f64.sqrt()) / 10f64.powf(62.0 / 20.0);
+    assert!((enob_from_nad(nad) - enob_from_sinad(62.0)).abs() < 0.002);
+    // An ideal 16-bit quantiser: NAD = Q/√12 gives exactly 16 bits.
+    assert!((enob_from_nad(2f64.powi(-15) / 12f64.sqrt()) - 16.0).abs() < 1e-12);
 }

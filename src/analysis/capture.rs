@@ -3,7 +3,7 @@
 
 use super::steady::steady_range;
 use super::AnalysisConfig;
-use crate::dsp::fit::{estimate_frequency, fit_tones, residual_baseband, ToneModel};
+use crate::dsp::fit::{estimate_frequency, fit_tones, residual_into, ToneModel};
 use crate::dsp::noise::quadrature_sigma;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Capture, Drive};
@@ -88,7 +88,7 @@ pub fn analyze_capture(
     };
     let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
     let mut planner = FftPlanner::new();
-    let mut baseband = Vec::new();
+    let mut residual = Vec::new();
     let fits = match &model {
         Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
         None => None,
@@ -107,9 +107,9 @@ pub fn analyze_capture(
             match (&model, &fits) {
                 (Some(m), Some(fits)) => {
                     let fit = &fits[i];
-                    let ss = residual_baseband(x, fit, m, &mut baseband);
+                    let ss = residual_into(x, fit, m, &mut residual);
                     let sigma =
-                        quadrature_sigma(&baseband, m.freq_hz(fs), fs, m.terms, &mut planner);
+                        quadrature_sigma(&residual, m.freq_hz(fs), fs, m.terms, &mut planner);
                     ChannelFit {
                         channel: i as u32 + 1,
                         amplitude: fit.fundamental(),

@@ -258,18 +258,12 @@ pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>,
         .collect())
 }
 
-/// Explicit residual `x − model` of one channel, mixed down to baseband by
-/// `e^{−jωt}`: returns the residual's sum of squares and fills `baseband`
-/// with `(re, im)` pairs (one per sample).
-pub fn residual_baseband(
-    x: &[f32],
-    fit: &ToneFit,
-    model: &ToneModel,
-    baseband: &mut Vec<(f64, f64)>,
-) -> f64 {
+/// Explicit residual `x − model` of one channel into `residual`; returns
+/// its sum of squares.
+pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut Vec<f64>) -> f64 {
     let len = x.len();
-    baseband.clear();
-    baseband.reserve(len);
+    residual.clear();
+    residual.reserve(len);
     let mut basis = BasisBlock::new(model.terms);
     let mut ss = 0.0;
     let mut n0 = 0;
@@ -283,7 +277,7 @@ pub fn residual_baseband(
             }
             let r = f64::from(x[n0 + i]) - v;
             ss += r * r;
-            baseband.push((r * basis.cos[0][i], -r * basis.sin[0][i]));
+            residual.push(r);
         }
         n0 += m;
     }

@@ -11,7 +11,9 @@ pub mod level;
 pub mod linalg;
 pub mod noise;
 pub mod osc;
+pub mod psd;
 pub mod spectrum;
+pub mod weighting;
 pub mod window;
 
 pub use fit::{estimate_frequency, fit_tones, FrequencyFit, ToneFit, ToneModel};

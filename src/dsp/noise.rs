@@ -17,6 +17,7 @@
 //! truncated exponential's mean below that point; two rounds settle it. For
 //! white noise this is unbiased; a line only raises the bins it occupies.
 
+use super::osc::{fill_harmonics, BLOCK};
 use rustfft::num_complex::Complex;
 use rustfft::FftPlanner;
 
@@ -50,28 +51,33 @@ fn censored_mean(power: &[f64]) -> f64 {
 /// below 0 Hz, above the Nyquist frequency or onto a harmonic are left out;
 /// returns `None` when fewer than eight offsets remain.
 pub fn quadrature_sigma(
-    baseband: &[(f64, f64)],
+    residual: &[f64],
     freq_hz: f64,
     sample_rate_hz: f64,
     terms: usize,
     planner: &mut FftPlanner<f64>,
 ) -> Option<f64> {
-    let len = baseband.len();
+    let len = residual.len();
     if len < 64 {
         return None;
     }
     let bin_hz = sample_rate_hz / len as f64;
     let window = crate::dsp::window::HANN;
     let mut energy = 0.0;
-    let mut buf: Vec<Complex<f64>> = baseband
-        .iter()
-        .enumerate()
-        .map(|(n, (r, i))| {
-            let w = window.value(n, len);
+    // Mix down by e^{−jωn}, a rotating phasor with exact values every block.
+    let omega = 2.0 * std::f64::consts::PI * freq_hz / sample_rate_hz;
+    let mut buf: Vec<Complex<f64>> = Vec::with_capacity(len);
+    let (mut c, mut s) = (vec![vec![0.0; BLOCK]], vec![vec![0.0; BLOCK]]);
+    for n0 in (0..len).step_by(BLOCK) {
+        let m = BLOCK.min(len - n0);
+        fill_harmonics(omega, 0.0, n0, m, &mut c, &mut s);
+        for i in 0..m {
+            let w = window.value(n0 + i, len);
             energy += w * w;
-            Complex::new(r * w, i * w)
-        })
-        .collect();
+            let r = residual[n0 + i] * w;
+            buf.push(Complex::new(r * c[0][i], -r * s[0][i]));
+        }
+    }
     planner.plan_fft_forward(len).process(&mut buf);
     let mut power = Vec::with_capacity(2 * OFFSETS.end());
     for k in OFFSETS {
