@@ -202,7 +202,10 @@ fn demo_prints_a_summary() {
     let w = Workdir::new();
     let out = w.ok(&["demo", "--out", "d"]);
     assert!(out.contains("Worst pair per test frequency"), "{out}");
-    assert!(out.contains("Noise floor per channel"), "{out}");
+    assert!(
+        out.contains("Noise floor and dynamic range per channel"),
+        "{out}"
+    );
     assert!(w.path("d/results/pairs.csv").exists());
     assert!(w.path("d/run/run.json").exists());
     // A second demo into the same folder is refused, the first stays.

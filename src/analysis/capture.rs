@@ -1,10 +1,12 @@
 //! One capture: steady part, frequency, fits on every channel, explicit
 //! residuals, local noise and detection limits.
 
+use super::quality::{drive_quality, out_of_band_peak, DriveQuality};
 use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::fit::{estimate_frequency, fit_tones, residual_into, ToneModel};
 use crate::dsp::noise::quadrature_sigma;
+use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Capture, Drive};
 use rustfft::FftPlanner;
@@ -32,6 +34,10 @@ pub struct ChannelFit {
     pub peak: f64,
     /// Samples at or beyond the clipping threshold over the whole capture.
     pub clipped: usize,
+    /// Mean-square residual in the analysis bands (see [`AnalysisConfig::bands`]).
+    pub band_power: Vec<f64>,
+    /// Largest component above the usable band over the whole capture, peak amplitude.
+    pub out_of_band_peak: f64,
 }
 
 /// The analysis of one capture.
@@ -51,6 +57,8 @@ pub struct CaptureAnalysis {
     pub tone_hz: Option<f64>,
     /// Per channel, in channel order.
     pub channels: Vec<ChannelFit>,
+    /// SINAD, THD, SFDR, ENOB and clock figures of the driven channel.
+    pub drive_quality: Option<DriveQuality>,
     /// Spectra of the analysed span (drive captures): the aggressor's and the
     /// victim's with the strongest tone, as `(channel, spectrum)`.
     #[serde(skip)]
@@ -89,6 +97,8 @@ pub fn analyze_capture(
     let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
     let mut planner = FftPlanner::new();
     let mut residual = Vec::new();
+    let bands = config.bands(fs);
+    let usable_edge = fs / config.usable_band_ratio;
     let fits = match &model {
         Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
         None => None,
@@ -104,12 +114,14 @@ pub fn analyze_capture(
                 .filter(|v| f64::from(v.abs()) >= config.clip_level)
                 .count();
             let len = x.len() as f64;
+            let out_of_band_peak = out_of_band_peak(full, fs, usable_edge);
             match (&model, &fits) {
                 (Some(m), Some(fits)) => {
                     let fit = &fits[i];
                     let ss = residual_into(x, fit, m, &mut residual);
                     let sigma =
                         quadrature_sigma(&residual, m.freq_hz(fs), fs, m.terms, &mut planner);
+                    let band_power = band_powers(&residual, fs, &bands);
                     ChannelFit {
                         channel: i as u32 + 1,
                         amplitude: fit.fundamental(),
@@ -120,11 +132,16 @@ pub fn analyze_capture(
                         quadrature_sigma: sigma,
                         peak,
                         clipped,
+                        band_power,
+                        out_of_band_peak,
                     }
                 }
                 _ => {
                     let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len;
-                    let ss: f64 = x.iter().map(|v| (f64::from(*v) - mean).powi(2)).sum();
+                    residual.clear();
+                    residual.extend(x.iter().map(|v| f64::from(*v) - mean));
+                    let ss: f64 = residual.iter().map(|r| r * r).sum();
+                    let band_power = band_powers(&residual, fs, &bands);
                     ChannelFit {
                         channel: i as u32 + 1,
                         amplitude: 0.0,
@@ -135,13 +152,24 @@ pub fn analyze_capture(
                         quadrature_sigma: None,
                         peak,
                         clipped,
+                        band_power,
+                        out_of_band_peak,
                     }
                 }
             }
         })
         .collect();
     let mut spectra = Vec::new();
-    if let Some(d) = drive {
+    let mut quality = None;
+    if let (Some(d), Some(m)) = (drive, &model) {
+        quality = drive_quality(
+            slices[d.channel as usize - 1],
+            fs,
+            d.channel,
+            d.frequency_hz,
+            m.freq_hz(fs),
+            config.jitter_s,
+        );
         let loudest = channels
             .iter()
             .filter(|c| c.channel != d.channel)
@@ -161,6 +189,7 @@ pub fn analyze_capture(
         span_frames: span.len(),
         tone_hz: model.map(|m: ToneModel| m.freq_hz(fs)),
         channels,
+        drive_quality: quality,
         spectra,
     })
 }

@@ -43,6 +43,12 @@ pub fn write_results(results: &RunResults, dir: &Path) -> Result<(), RunError> {
             &dir.join(spectrum_file_name(s.frequency_hz)),
         )?;
     }
+    if !results.drive_quality.is_empty() {
+        write_drive(results, &dir.join("drive.csv"))?;
+    }
+    if !results.coupling.is_empty() {
+        write_coupling(results, dir)?;
+    }
     let path = dir.join("summary.json");
     let text = serde_json::to_string_pretty(&summary(results)).expect("summary serialises");
     std::fs::write(&path, text + "\n").map_err(|e| RunError::io(&path, e))
@@ -84,7 +90,8 @@ fn write_pairs(r: &RunResults, path: &Path) -> Result<(), RunError> {
 }
 
 fn write_channels(r: &RunResults, path: &Path) -> Result<(), RunError> {
-    let header = [
+    let edge = r.floors.first().map_or(0.0, |f| f.usable_band_hz);
+    let mut header: Vec<String> = [
         "channel",
         "noise_floor_dbfs",
         "noise_density_dbfs_per_rthz",
@@ -94,10 +101,20 @@ fn write_channels(r: &RunResults, path: &Path) -> Result<(), RunError> {
         "clipped_samples",
         "name",
         "termination",
-    ];
+        "dynamic_range_db",
+    ]
+    .map(String::from)
+    .to_vec();
+    header.push(format!("noise_0Hz_{edge}Hz_dbfs"));
+    header.push(format!("density_0Hz_{edge}Hz_dbfs_per_rthz"));
+    header.push(format!("dynamic_range_0Hz_{edge}Hz_db"));
+    if r.config.a_weighting {
+        header.push("noise_a_weighted_20Hz_20kHz_dbfs".into());
+        header.push("dynamic_range_a_weighted_db".into());
+    }
     let rows = r.floors.iter().map(|f| {
         let entry = &r.manifest.channels[f.channel as usize - 1];
-        vec![
+        let mut row = vec![
             f.channel.to_string(),
             format!("{:.4}", f.noise_floor_dbfs),
             format!("{:.4}", f.noise_density_dbfs_per_rthz),
@@ -107,11 +124,101 @@ fn write_channels(r: &RunResults, path: &Path) -> Result<(), RunError> {
             f.clipped.to_string(),
             entry.name.clone().unwrap_or_default(),
             entry.termination.clone().unwrap_or_default(),
+            format!("{:.4}", f.dynamic_range_db),
+            format!("{:.4}", f.usable_noise_dbfs),
+            format!("{:.4}", f.usable_density_dbfs_per_rthz),
+            format!("{:.4}", f.usable_dynamic_range_db),
+        ];
+        if r.config.a_weighting {
+            row.push(fmt_opt(f.a_weighted_noise_dbfs, 4));
+            row.push(fmt_opt(f.a_weighted_dynamic_range_db, 4));
+        }
+        row
+    });
+    write_rows(path, std::iter::once(header).chain(rows))
+}
+
+fn write_drive(r: &RunResults, path: &Path) -> Result<(), RunError> {
+    let header = [
+        "frequency_hz",
+        "channel",
+        "tone_hz",
+        "level_dbfs",
+        "sinad_db",
+        "thd_db",
+        "thd_harmonics",
+        "sfdr_db",
+        "enob_bits",
+        "clock_offset_ppm",
+        "clock_offset_u95_ppm",
+        "jitter_snr_db",
+    ];
+    let rows = r.drive_quality.iter().map(|d| {
+        vec![
+            d.frequency_hz.to_string(),
+            d.channel.to_string(),
+            format!("{:.6}", d.tone_hz),
+            format!("{:.4}", d.level_dbfs),
+            format!("{:.3}", d.sinad_db),
+            fmt_opt(d.thd_db, 3),
+            d.thd_harmonics.to_string(),
+            format!("{:.3}", d.sfdr_db),
+            format!("{:.4}", d.enob_bits),
+            format!("{:.4}", d.clock_offset_ppm),
+            format!("{:.4}", d.clock_offset_u95_ppm),
+            format!("{:.3}", d.jitter_snr_db),
         ]
     });
     write_rows(
         path,
         std::iter::once(header.map(String::from).to_vec()).chain(rows),
+    )
+}
+
+fn write_coupling(r: &RunResults, dir: &Path) -> Result<(), RunError> {
+    let header = [
+        "aggressor",
+        "victim",
+        "points",
+        "slope_db_per_decade",
+        "shared_db",
+        "rising_db_at_1khz",
+        "crossover_hz",
+        "mechanism",
+    ];
+    let rows = r.coupling.iter().map(|c| {
+        vec![
+            c.aggressor.to_string(),
+            c.victim.to_string(),
+            c.points.to_string(),
+            fmt_opt(c.slope_db_per_decade, 3),
+            fmt_opt(c.shared_db, 3),
+            fmt_opt(c.rising_db_at_1khz, 3),
+            fmt_opt(c.crossover_hz, 1),
+            c.mechanism.label().to_string(),
+        ]
+    });
+    write_rows(
+        &dir.join("coupling.csv"),
+        std::iter::once(header.map(String::from).to_vec()).chain(rows),
+    )?;
+    let n = r.manifest.channels.len() as u32;
+    let header = std::iter::once("aggressor".to_string()).chain((1..=n).map(|v| v.to_string()));
+    let mut aggressors: Vec<u32> = r.coupling.iter().map(|c| c.aggressor).collect();
+    aggressors.dedup();
+    let rows = aggressors.into_iter().map(|a| {
+        std::iter::once(a.to_string())
+            .chain((1..=n).map(|v| {
+                r.coupling
+                    .iter()
+                    .find(|c| c.aggressor == a && c.victim == v)
+                    .map_or_else(String::new, |c| c.mechanism.label().to_string())
+            }))
+            .collect()
+    });
+    write_rows(
+        &dir.join("coupling-matrix.csv"),
+        std::iter::once(header.collect()).chain(rows),
     )
 }
 
@@ -232,6 +339,9 @@ pub fn summary(r: &RunResults) -> Value {
                 "levels": "sine-calibrated bin levels in dBFS; peak and power mean over log-spaced buckets",
             }))
         }).collect::<Vec<_>>(),
+        "drive_quality": r.drive_quality,
+        "coupling": r.coupling,
+        "coupling_note": "capacitive and inductive coupling both rise about 20 dB per decade; measure again with the victims open or loaded by a resistor: capacitive coupling grows with the victim's impedance, inductive coupling falls",
         "warnings": r.warnings,
     })
 }

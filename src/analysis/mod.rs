@@ -3,7 +3,9 @@
 //! the leakage matrix per test frequency.
 
 pub mod capture;
+pub mod coupling;
 pub mod export;
+pub mod quality;
 pub mod steady;
 
 pub use capture::{analyze_capture, CaptureAnalysis, ChannelFit};
@@ -37,6 +39,36 @@ pub struct AnalysisConfig {
     pub spurious_margin_db: f64,
     /// Warn when the aggressor's tone-to-residual ratio is below this, dB.
     pub aggressor_purity_db: f64,
+    /// The usable band ends at fs divided by this (2.56 is customary for
+    /// noise and vibration analysers).
+    pub usable_band_ratio: f64,
+    /// Report an A-weighted noise floor (IEC 61672-1) over 20 Hz to 20 kHz.
+    pub a_weighting: bool,
+    /// Stated rms sampling jitter for the jitter-limited SNR, seconds.
+    pub jitter_s: f64,
+    /// Warn when a component above the usable band reaches this level, dBFS.
+    pub out_of_band_warn_dbfs: f64,
+}
+
+impl AnalysisConfig {
+    /// The bands whose residual power is measured on every channel: the
+    /// usable band (0 Hz to fs/ratio), then the A-weighted audio band when enabled.
+    pub fn bands(&self, sample_rate_hz: f64) -> Vec<crate::dsp::psd::Band> {
+        use crate::dsp::psd::Band;
+        let mut b = vec![Band {
+            lo_hz: 0.0,
+            hi_hz: sample_rate_hz / self.usable_band_ratio,
+            weighting: None,
+        }];
+        if self.a_weighting {
+            b.push(Band {
+                lo_hz: 20.0,
+                hi_hz: 20_000f64.min(sample_rate_hz / 2.0),
+                weighting: Some(crate::dsp::weighting::a_weighting_power),
+            });
+        }
+        b
+    }
 }
 
 impl Default for AnalysisConfig {
@@ -48,6 +80,10 @@ impl Default for AnalysisConfig {
             clip_level: 0.999,
             weak_aggressor_margin_db: 40.0,
             below_nominal_db: 20.0,
+            usable_band_ratio: 2.56,
+            a_weighting: true,
+            jitter_s: 100e-12,
+            out_of_band_warn_dbfs: -10.0,
             spurious_margin_db: 10.0,
             aggressor_purity_db: 40.0,
         }
@@ -115,6 +151,20 @@ pub struct ChannelFloor {
     pub dc_offset: f64,
     /// Clipped samples over all captures.
     pub clipped: usize,
+    /// Dynamic range: a full-scale sine (0 dBFS) over the broadband floor, dB.
+    pub dynamic_range_db: f64,
+    /// Upper edge of the usable band, Hz.
+    pub usable_band_hz: f64,
+    /// Noise over 0 Hz to the usable band's edge, dBFS.
+    pub usable_noise_dbfs: f64,
+    /// Average density over the usable band, dBFS/√Hz.
+    pub usable_density_dbfs_per_rthz: f64,
+    /// Dynamic range over the usable band, dB.
+    pub usable_dynamic_range_db: f64,
+    /// A-weighted noise over 20 Hz to 20 kHz (IEC 61672-1), dBFS.
+    pub a_weighted_noise_dbfs: Option<f64>,
+    /// A-weighted dynamic range, dB.
+    pub a_weighted_dynamic_range_db: Option<f64>,
 }
 
 /// Something the engineer should look at.
@@ -159,6 +209,10 @@ pub struct RunResults {
     pub floors: Vec<ChannelFloor>,
     /// Worst pair per frequency.
     pub per_frequency: Vec<FrequencySummary>,
+    /// Driven-channel quality per drive capture, by frequency and channel.
+    pub drive_quality: Vec<quality::DriveQuality>,
+    /// Coupling against frequency per ordered pair.
+    pub coupling: Vec<coupling::CouplingFit>,
     /// Warnings.
     pub warnings: Vec<Warning>,
 }
@@ -202,11 +256,12 @@ pub fn assemble(
     config: AnalysisConfig,
     captures: Vec<CaptureAnalysis>,
 ) -> RunResults {
-    let floors = floors(&manifest, &captures);
+    let floors = floors(&manifest, &captures, &config);
     let mut warnings = Vec::new();
     let mut pairs = Vec::new();
     for cap in &captures {
         check_clipping(cap, &config, &mut warnings);
+        check_out_of_band(cap, manifest.sample_rate_hz, &config, &mut warnings);
         let Some(drive) = cap.drive else { continue };
         let tone_hz = cap.tone_hz.unwrap_or(drive.frequency_hz);
         let agg = &cap.channels[drive.channel as usize - 1];
@@ -266,7 +321,23 @@ pub fn assemble(
             })
         })
         .collect();
+    let mut drive_quality: Vec<quality::DriveQuality> = captures
+        .iter()
+        .filter_map(|c| c.drive_quality.clone())
+        .collect();
+    drive_quality.sort_by(|a, b| {
+        a.frequency_hz
+            .total_cmp(&b.frequency_hz)
+            .then(a.channel.cmp(&b.channel))
+    });
+    let coupling = if manifest.frequencies().len() >= 3 {
+        coupling::fit_all(&pairs)
+    } else {
+        Vec::new()
+    };
     RunResults {
+        drive_quality,
+        coupling,
         manifest,
         config,
         captures,
@@ -279,7 +350,11 @@ pub fn assemble(
 
 /// Broadband floors: from idle captures when the run has any, else from the
 /// captures where the channel was a victim; mean square over the captures.
-fn floors(manifest: &Manifest, captures: &[CaptureAnalysis]) -> Vec<ChannelFloor> {
+fn floors(
+    manifest: &Manifest,
+    captures: &[CaptureAnalysis],
+    config: &AnalysisConfig,
+) -> Vec<ChannelFloor> {
     let fs = f64::from(manifest.sample_rate_hz);
     let has_idle = captures.iter().any(|c| c.drive.is_none());
     (1..=manifest.channels.len() as u32)
@@ -295,6 +370,10 @@ fn floors(manifest: &Manifest, captures: &[CaptureAnalysis]) -> Vec<ChannelFloor
             let n = used.len().max(1) as f64;
             let power = used.iter().map(|f| f.residual_rms.powi(2)).sum::<f64>() / n;
             let floor = power_to_dbfs(power);
+            let band = |i: usize| used.iter().filter_map(|f| f.band_power.get(i)).sum::<f64>() / n;
+            let usable_hz = fs / config.usable_band_ratio;
+            let usable = power_to_dbfs(band(0));
+            let a_weighted = config.a_weighting.then(|| power_to_dbfs(band(1)));
             ChannelFloor {
                 channel: ch,
                 noise_floor_dbfs: floor,
@@ -306,9 +385,40 @@ fn floors(manifest: &Manifest, captures: &[CaptureAnalysis]) -> Vec<ChannelFloor
                     .iter()
                     .map(|c| c.channels[ch as usize - 1].clipped)
                     .sum(),
+                dynamic_range_db: -floor,
+                usable_band_hz: usable_hz,
+                usable_noise_dbfs: usable,
+                usable_density_dbfs_per_rthz: usable - 10.0 * usable_hz.log10(),
+                usable_dynamic_range_db: -usable,
+                a_weighted_noise_dbfs: a_weighted,
+                a_weighted_dynamic_range_db: a_weighted.map(|a| -a),
             }
         })
         .collect()
+}
+
+fn check_out_of_band(
+    cap: &CaptureAnalysis,
+    sample_rate_hz: u32,
+    config: &AnalysisConfig,
+    warnings: &mut Vec<Warning>,
+) {
+    let edge = f64::from(sample_rate_hz) / config.usable_band_ratio;
+    for c in &cap.channels {
+        let oob = amplitude_to_dbfs(c.out_of_band_peak);
+        if oob >= config.out_of_band_warn_dbfs {
+            let in_band = amplitude_to_dbfs(c.amplitude.max(1e-12));
+            warnings.push(Warning {
+                kind: "out-of-band",
+                capture: Some(cap.file.clone()),
+                channel: Some(c.channel),
+                message: format!(
+                    "channel {} carries a component at {oob:.1} dBFS above the usable band ({edge:.0} Hz), near full scale although the test tone reads {in_band:.1} dBFS: it can overload the converter unseen; find the source (a switching supply, a modulated carrier, a generator's images), filter it before the input or lower it",
+                    c.channel
+                ),
+            });
+        }
+    }
 }
 
 fn check_clipping(cap: &CaptureAnalysis, config: &AnalysisConfig, warnings: &mut Vec<Warning>) {

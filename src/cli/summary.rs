@@ -90,8 +90,11 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
             println!("{t}\n");
         }
     }
+    print_drive_quality(r);
+    print_coupling(r);
+    let edge = r.floors.first().map_or(0.0, |f| f.usable_band_hz);
     println!(
-        "Noise floor per channel (broadband, 0 to {} Hz)",
+        "Noise floor and dynamic range per channel (broadband 0 to {} Hz; usable band 0 to {edge:.0} Hz)",
         m.sample_rate_hz / 2
     );
     let mut t = table(&[
@@ -100,6 +103,10 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
         "termination",
         "floor (dBFS)",
         "density (dBFS/√Hz)",
+        "DR (dB)",
+        "usable band (dBFS)",
+        "DR usable (dB)",
+        "A-weighted (dBFS)",
         "from",
         "clipped",
     ]);
@@ -111,6 +118,11 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
             e.termination.clone().unwrap_or_default(),
             format!("{:.1}", f.noise_floor_dbfs),
             format!("{:.1}", f.noise_density_dbfs_per_rthz),
+            format!("{:.1}", f.dynamic_range_db),
+            format!("{:.1}", f.usable_noise_dbfs),
+            format!("{:.1}", f.usable_dynamic_range_db),
+            f.a_weighted_noise_dbfs
+                .map_or("-".into(), |a| format!("{a:.1}")),
             if f.source == "idle" {
                 "idle capture"
             } else {
@@ -136,6 +148,85 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
     }
     println!();
     println!("results: {}", out.display());
+}
+
+/// Driven-channel quality, condensed per test frequency over the aggressors.
+fn print_drive_quality(r: &RunResults) {
+    use septum::analysis::quality::DriveQuality;
+    if r.drive_quality.is_empty() {
+        return;
+    }
+    println!(
+        "Driven channel per test frequency (over all aggressors; THD over harmonics 2 to {}, jitter SNR for {} ps rms)",
+        r.drive_quality.iter().map(|d| d.thd_harmonics).max().unwrap_or(0),
+        r.config.jitter_s * 1e12
+    );
+    let mut t = table(&[
+        "frequency (Hz)",
+        "SINAD min (dB)",
+        "THD max (dB)",
+        "SFDR min (dB)",
+        "ENOB min (bits)",
+        "clock offset (ppm)",
+        "jitter SNR (dB)",
+    ]);
+    for f in r.manifest.frequencies() {
+        let d: Vec<&DriveQuality> = r
+            .drive_quality
+            .iter()
+            .filter(|d| d.frequency_hz == f)
+            .collect();
+        if d.is_empty() {
+            continue;
+        }
+        let min =
+            |g: fn(&DriveQuality) -> f64| d.iter().map(|q| g(q)).fold(f64::INFINITY, f64::min);
+        let ppm = d.iter().map(|q| q.clock_offset_ppm).sum::<f64>() / d.len() as f64;
+        let ppm_u = d.iter().map(|q| q.clock_offset_u95_ppm).fold(0.0, f64::max);
+        t.add_row(vec![
+            format!("{f}"),
+            format!("{:.1}", min(|q| q.sinad_db)),
+            d.iter()
+                .filter_map(|q| q.thd_db)
+                .reduce(f64::max)
+                .map_or("-".into(), |t| format!("{t:.1}")),
+            format!("{:.1}", min(|q| q.sfdr_db)),
+            format!("{:.2}", min(|q| q.enob_bits)),
+            format!("{ppm:+.4} ± {ppm_u:.4}"),
+            format!("{:.1}", d[0].jitter_snr_db),
+        ]);
+    }
+    println!("{t}\n");
+}
+
+/// The coupling mechanism matrix (three or more test frequencies).
+fn print_coupling(r: &RunResults) {
+    use septum::analysis::coupling::Mechanism;
+    if r.coupling.is_empty() || r.manifest.channels.len() > 16 {
+        return;
+    }
+    println!("Dominant coupling (rows: aggressor, columns: victim; R rising 20 dB/decade: capacitive or inductive; F flat: shared impedance; M mixed; ? too few detected points)");
+    let n = r.manifest.channels.len() as u32;
+    let mut header: Vec<String> = vec!["aggr.".into()];
+    header.extend((1..=n).map(|v| v.to_string()));
+    let mut t = table(&header.iter().map(String::as_str).collect::<Vec<_>>());
+    for a in 1..=n {
+        let mut row = vec![a.to_string()];
+        row.extend((1..=n).map(|v| {
+            r.coupling
+                .iter()
+                .find(|c| c.aggressor == a && c.victim == v)
+                .map_or("-", |c| match c.mechanism {
+                    Mechanism::CapacitiveOrInductive => "R",
+                    Mechanism::SharedImpedance => "F",
+                    Mechanism::Mixed => "M",
+                    Mechanism::Insufficient => "?",
+                })
+                .to_string()
+        }));
+        t.add_row(row);
+    }
+    println!("{t}\n");
 }
 
 fn separation(db: f64, floor_limited: bool) -> String {

@@ -62,7 +62,7 @@ pub fn quadrature_sigma(
         return None;
     }
     let bin_hz = sample_rate_hz / len as f64;
-    let window = crate::dsp::window::HANN;
+    let window = crate::dsp::window::HANN.cached(len);
     let mut energy = 0.0;
     // Mix down by e^{−jωn}, a rotating phasor with exact values every block.
     let omega = 2.0 * std::f64::consts::PI * freq_hz / sample_rate_hz;
@@ -72,7 +72,7 @@ pub fn quadrature_sigma(
         let m = BLOCK.min(len - n0);
         fill_harmonics(omega, 0.0, n0, m, &mut c, &mut s);
         for i in 0..m {
-            let w = window.value(n0 + i, len);
+            let w = window[n0 + i];
             energy += w * w;
             let r = residual[n0 + i] * w;
             buf.push(Complex::new(r * c[0][i], -r * s[0][i]));

@@ -26,7 +26,7 @@ pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
     }
     let seg = SEGMENT.min(len);
     let hop = seg / 2;
-    let w = HANN.samples(seg);
+    let w = HANN.cached(seg);
     let s2: f64 = w.iter().map(|v| v * v).sum();
     let fft = RealFftPlanner::<f64>::new().plan_fft_forward(seg);
     let mut buf = fft.make_input_vec();
@@ -35,7 +35,10 @@ pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
     let mut segments = 0usize;
     let mut start = 0;
     while start + seg <= len {
-        for (b, (v, wv)) in buf.iter_mut().zip(x[start..start + seg].iter().zip(&w)) {
+        for (b, (v, wv)) in buf
+            .iter_mut()
+            .zip(x[start..start + seg].iter().zip(w.iter()))
+        {
             *b = v * wv;
         }
         if fft.process(&mut buf, &mut out).is_err() {

@@ -28,13 +28,13 @@ pub fn log_spectrum(x: &[f32], sample_rate_hz: f64, buckets: usize) -> Option<Sp
     if len < 64 || buckets == 0 {
         return None;
     }
-    let w = BLACKMAN_HARRIS_7.samples(len);
+    let w = BLACKMAN_HARRIS_7.cached(len);
     let s1: f64 = w.iter().sum();
     let s2: f64 = w.iter().map(|v| v * v).sum();
     let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len as f64;
     let mut input: Vec<f64> = x
         .iter()
-        .zip(&w)
+        .zip(w.iter())
         .map(|(v, w)| (f64::from(*v) - mean) * w)
         .collect();
     let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);

@@ -1,6 +1,8 @@
 //! Spectral windows and their figures of merit (periodic forms).
 
+use std::cell::RefCell;
 use std::f64::consts::PI;
+use std::rc::Rc;
 
 /// A cosine-sum window: `w[n] = Σ_k (−1)^k a_k cos(2πkn/N)`, periodic form.
 #[derive(Debug, Clone, Copy)]
@@ -47,6 +49,27 @@ impl CosineWindow {
     /// The window as a vector of length `len`.
     pub fn samples(&self, len: usize) -> Vec<f64> {
         (0..len).map(|n| self.value(n, len)).collect()
+    }
+
+    /// The window of length `len`, computed once per thread and length and
+    /// then shared (captures of one run mostly share their lengths).
+    pub fn cached(&self, len: usize) -> Rc<[f64]> {
+        thread_local! {
+            static CACHE: RefCell<Vec<(usize, usize, Rc<[f64]>)>> = const { RefCell::new(Vec::new()) };
+        }
+        let key = self.coefficients.as_ptr() as usize;
+        CACHE.with(|c| {
+            let mut c = c.borrow_mut();
+            if let Some((_, _, w)) = c.iter().find(|(k, l, _)| *k == key && *l == len) {
+                return w.clone();
+            }
+            let w: Rc<[f64]> = self.samples(len).into();
+            if c.len() >= 16 {
+                c.remove(0);
+            }
+            c.push((key, len, w.clone()));
+            w
+        })
     }
 
     /// Coherent gain: mean of the window (`S1 / N`).
