@@ -407,13 +407,14 @@ fn check_out_of_band(
     for c in &cap.channels {
         let oob = amplitude_to_dbfs(c.out_of_band_peak);
         if oob >= config.out_of_band_warn_dbfs {
-            let in_band = amplitude_to_dbfs(c.amplitude.max(1e-12));
+            let in_band =
+                amplitude_to_dbfs(c.amplitude).max(crate::dsp::rms_to_dbfs(c.residual_rms));
             warnings.push(Warning {
                 kind: "out-of-band",
                 capture: Some(cap.file.clone()),
                 channel: Some(c.channel),
                 message: format!(
-                    "channel {} carries a component at {oob:.1} dBFS above the usable band ({edge:.0} Hz), near full scale although the test tone reads {in_band:.1} dBFS: it can overload the converter unseen; find the source (a switching supply, a modulated carrier, a generator's images), filter it before the input or lower it",
+                    "channel {} carries a component at {oob:.1} dBFS above the usable band ({edge:.0} Hz), near full scale while its in-band content reads only {in_band:.1} dBFS: it can overload the converter unseen; find the source (a switching supply, a modulated carrier, a generator's images), filter it before the input or lower it",
                     c.channel
                 ),
             });

@@ -4,7 +4,7 @@
 
 use crate::dsp::fit::{fit_tones, residual_into, ToneModel};
 use crate::dsp::level::{enob_from_nad, jitter_snr_db};
-use crate::dsp::window::HANN;
+use crate::dsp::window::{FLAT_TOP, HANN};
 use crate::dsp::{amplitude_to_dbfs, rms_to_dbfs};
 use realfft::RealFftPlanner;
 use serde::Serialize;
@@ -107,19 +107,19 @@ fn largest_line(r: &[f64], omega: f64) -> f64 {
 }
 
 /// Largest component above `edge_hz` in `x`, as a peak amplitude: the
-/// highest sine-calibrated Hann bin over up to four 8192-sample segments
+/// highest sine-calibrated flat-top bin over up to four 8192-sample segments
 /// spread over the whole capture.
 pub fn out_of_band_peak(x: &[f32], sample_rate_hz: f64, edge_hz: f64) -> f64 {
     let seg = 8192.min(x.len());
     if seg < 64 {
         return 0.0;
     }
-    let w = HANN.cached(seg);
+    let w = FLAT_TOP.cached(seg);
     let s1: f64 = w.iter().sum();
     let fft = RealFftPlanner::<f64>::new().plan_fft_forward(seg);
     let mut buf = fft.make_input_vec();
     let mut out = fft.make_output_vec();
-    let first_bin = (edge_hz / sample_rate_hz * seg as f64).ceil() as usize + 2;
+    let first_bin = (edge_hz / sample_rate_hz * seg as f64).ceil() as usize + 5;
     let starts = 4.min(x.len() / seg).max(1);
     let mut peak = 0.0f64;
     for i in 0..starts {

@@ -21,6 +21,18 @@ pub const BLACKMAN_HARRIS_4: CosineWindow = CosineWindow {
     coefficients: &[0.35875, 0.48829, 0.14128, 0.01168],
 };
 
+/// A 5-term flat-top window (D'Antona and Ferrero), for amplitude readings
+/// within ±0.02 dB wherever a tone falls between bins.
+pub const FLAT_TOP: CosineWindow = CosineWindow {
+    coefficients: &[
+        0.215_578_95,
+        0.416_631_58,
+        0.277_263_158,
+        0.083_578_947,
+        0.006_947_368,
+    ],
+};
+
 /// The 7-term Blackman-Harris window (about −180 dB sidelobes), for spectra
 /// that must show a −140 dBFS floor beside a full-scale tone.
 pub const BLACKMAN_HARRIS_7: CosineWindow = CosineWindow {

@@ -2,7 +2,7 @@
 //! (test frequency, aggressor) and an idle capture, written as the run format
 //! prescribes, plus the model and its expected figures under `model/`.
 
-use super::truth::{expected_channels, expected_pairs, gain};
+use super::truth::{expected_channels, expected_coupling, expected_drive, expected_pairs, gain};
 use super::Resolved;
 use crate::dsp::level::{dbfs_to_amplitude, dbfs_to_rms};
 use crate::run::{
@@ -297,12 +297,42 @@ fn write_model_files(r: &Resolved, model_text: &str, dir: &Path) -> Result<(), R
         );
     }
     write("expected-pairs.csv", pairs)?;
-    let mut chans = String::from("channel,noise_floor_dbfs,white_floor_dbfs\n");
+    let mut chans = String::from(
+        "channel,noise_floor_dbfs,white_floor_dbfs,usable_noise_dbfs,a_weighted_noise_dbfs\n",
+    );
     for c in expected_channels(r) {
         chans += &format!(
-            "{},{:.6},{:.6}\n",
-            c.channel, c.noise_floor_dbfs, c.white_floor_dbfs
+            "{},{:.6},{:.6},{:.6},{:.6}\n",
+            c.channel,
+            c.noise_floor_dbfs,
+            c.white_floor_dbfs,
+            c.usable_noise_dbfs,
+            c.a_weighted_noise_dbfs
         );
     }
-    write("expected-channels.csv", chans)
+    write("expected-channels.csv", chans)?;
+    let mut drive = String::from(
+        "frequency_hz,channel,level_dbfs,sinad_db,thd_db,enob_bits,clock_offset_ppm\n",
+    );
+    for d in expected_drive(r) {
+        drive += &format!(
+            "{},{},{:.6},{:.6},{},{:.6},{:.6}\n",
+            d.frequency_hz,
+            d.channel,
+            d.level_dbfs,
+            d.sinad_db,
+            d.thd_db.map_or(String::new(), |t| format!("{t:.6}")),
+            d.enob_bits,
+            d.clock_offset_ppm
+        );
+    }
+    write("expected-drive.csv", drive)?;
+    let mut coupling = String::from("aggressor,victim,shared_db,rising_db_at_1khz\n");
+    for c in expected_coupling(r) {
+        coupling += &format!(
+            "{},{},{:.6},{:.6}\n",
+            c.aggressor, c.victim, c.shared_db, c.rising_db_at_1khz
+        );
+    }
+    write("expected-coupling.csv", coupling)
 }
