@@ -314,3 +314,47 @@ fn out_of_band_overload_is_flagged() {
         "{oob:?}"
     );
 }
+
+/// The common-drive step: gain match and skew against the reference input,
+/// with inputs sampling at spread instants and one on a late converter.
+#[test]
+fn gain_match_and_skew_from_a_common_drive() {
+    let w = Workdir::new();
+    run(
+        &w,
+        &[
+            ("skew_spread_us = 0.0", "skew_spread_us = 0.3"),
+            (
+                "frequencies_hz = [997.0]\nlevel_dbfs = -6.0\nreference_channel = 1",
+                "frequencies_hz = [997.0, 15000.0]\nlevel_dbfs = -6.0\nreference_channel = 3",
+            ),
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "frequencies_hz = [1000.0]\npreferred_hz = []",
+            ),
+        ],
+    );
+    let got = by_key(
+        read_csv(&w.path("res/common-drive.csv")),
+        &["frequency_hz", "channel"],
+    );
+    let exp = read_csv(&w.path("run/model/expected-common.csv"));
+    assert_eq!(got.len(), 16);
+    for e in &exp {
+        let g = &got[&format!("{}/{}", e["frequency_hz"], e["channel"])];
+        assert_eq!(g["reference"], "3");
+        let what = format!("{} Hz ch {}", e["frequency_hz"], e["channel"]);
+        let du = num(g, "gain_u95_db") * 2.5 + 1e-4;
+        assert!(
+            (num(g, "gain_db") - num(e, "gain_db")).abs() <= du,
+            "{what}: {g:?}"
+        );
+        let su = num(g, "skew_u95_us") * 2.5 + 1e-4;
+        assert!(
+            (num(g, "skew_us") - num(e, "skew_us")).abs() <= su,
+            "{what}: {} vs {}",
+            g["skew_us"],
+            e["skew_us"]
+        );
+    }
+}

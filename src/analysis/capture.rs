@@ -4,7 +4,7 @@
 use super::quality::{drive_quality, out_of_band_peak, DriveQuality};
 use super::steady::steady_range;
 use super::AnalysisConfig;
-use crate::dsp::fit::{estimate_frequency, fit_tones, residual_into, ToneModel};
+use crate::dsp::fit::{coarse_frequency, estimate_frequency, fit_tones, residual_into, ToneModel};
 use crate::dsp::noise::quadrature_sigma;
 use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
@@ -80,7 +80,15 @@ pub fn analyze_capture(
     let (span, model) = match drive {
         Some(d) => {
             let aggressor = &capture.channels[d.channel as usize - 1];
-            let span = steady_range(aggressor, fs, d.frequency_hz)
+            if aggressor.iter().all(|v| *v == 0.0) {
+                return Err(format!(
+                    "channel {} at {} Hz: silent, no tone",
+                    d.channel, d.frequency_hz
+                ));
+            }
+            let coarse = coarse_frequency(aggressor, fs, d.frequency_hz, config.frequency_search)
+                .map_err(|e| format!("channel {}: {e}", d.channel))?;
+            let span = steady_range(aggressor, fs, coarse)
                 .map_err(|e| format!("channel {} at {} Hz: {e}", d.channel, d.frequency_hz))?;
             let est = estimate_frequency(
                 &aggressor[span.clone()],

@@ -49,6 +49,9 @@ pub fn write_results(results: &RunResults, dir: &Path) -> Result<(), RunError> {
     if !results.coupling.is_empty() {
         write_coupling(results, dir)?;
     }
+    if !results.common.is_empty() {
+        write_common(results, &dir.join("common-drive.csv"))?;
+    }
     let path = dir.join("summary.json");
     let text = serde_json::to_string_pretty(&summary(results)).expect("summary serialises");
     std::fs::write(&path, text + "\n").map_err(|e| RunError::io(&path, e))
@@ -168,6 +171,45 @@ fn write_drive(r: &RunResults, path: &Path) -> Result<(), RunError> {
             format!("{:.4}", d.clock_offset_u95_ppm),
             format!("{:.3}", d.jitter_snr_db),
         ]
+    });
+    write_rows(
+        path,
+        std::iter::once(header.map(String::from).to_vec()).chain(rows),
+    )
+}
+
+fn write_common(r: &RunResults, path: &Path) -> Result<(), RunError> {
+    let header = [
+        "frequency_hz",
+        "channel",
+        "reference",
+        "level_dbfs",
+        "gain_db",
+        "gain_u95_db",
+        "phase_deg",
+        "phase_u95_deg",
+        "skew_us",
+        "skew_u95_us",
+        "tone_hz",
+        "capture",
+    ];
+    let rows = r.common.iter().flat_map(|c| {
+        c.channels.iter().map(move |ch| {
+            vec![
+                c.frequency_hz.to_string(),
+                ch.channel.to_string(),
+                c.reference_channel.to_string(),
+                format!("{:.4}", ch.level_dbfs),
+                format!("{:.5}", ch.gain_db),
+                format!("{:.5}", ch.gain_u95_db),
+                format!("{:.5}", ch.phase_deg),
+                format!("{:.5}", ch.phase_u95_deg),
+                format!("{:.5}", ch.skew_us),
+                format!("{:.5}", ch.skew_u95_us),
+                format!("{:.6}", c.tone_hz),
+                c.file.clone(),
+            ]
+        })
     });
     write_rows(
         path,
@@ -340,6 +382,7 @@ pub fn summary(r: &RunResults) -> Value {
             }))
         }).collect::<Vec<_>>(),
         "drive_quality": r.drive_quality,
+        "common_drive": r.common,
         "coupling": r.coupling,
         "coupling_note": "capacitive and inductive coupling both rise about 20 dB per decade; measure again with the victims open or loaded by a resistor: capacitive coupling grows with the victim's impedance, inductive coupling falls",
         "warnings": r.warnings,

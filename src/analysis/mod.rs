@@ -3,6 +3,7 @@
 //! the leakage matrix per test frequency.
 
 pub mod capture;
+pub mod common;
 pub mod coupling;
 pub mod export;
 pub mod quality;
@@ -213,6 +214,8 @@ pub struct RunResults {
     pub drive_quality: Vec<quality::DriveQuality>,
     /// Coupling against frequency per ordered pair.
     pub coupling: Vec<coupling::CouplingFit>,
+    /// Gain match and skew from common-drive captures.
+    pub common: Vec<common::CommonDrive>,
     /// Warnings.
     pub warnings: Vec<Warning>,
 }
@@ -247,7 +250,25 @@ pub fn analyze_run(
             res
         })
         .collect::<Result<Vec<_>, _>>()?;
-    Ok(assemble(manifest, config.clone(), captures))
+    let common = manifest
+        .common_drive
+        .par_iter()
+        .map(|entry| {
+            let path = run_dir.join(&entry.file);
+            let cap = read_capture(&path, nch, manifest.sample_rate_hz)?;
+            let res = common::analyze_common(&cap, entry, config)
+                .map(|mut c| {
+                    c.file = entry.file.clone();
+                    c
+                })
+                .map_err(|message| AnalysisError::Capture { path, message });
+            progress();
+            res
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+    let mut results = assemble(manifest, config.clone(), captures);
+    results.common = common;
+    Ok(results)
 }
 
 /// Build pairs, floors and warnings from per-capture analyses.
@@ -338,6 +359,7 @@ pub fn assemble(
     RunResults {
         drive_quality,
         coupling,
+        common: Vec::new(),
         manifest,
         config,
         captures,

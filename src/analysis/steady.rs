@@ -32,9 +32,11 @@ fn block_len(sample_rate_hz: f64, freq_hz: f64) -> usize {
     (periods * period).round().max(8.0) as usize
 }
 
-/// The steady span of `x` (the aggressor channel) for a tone near `freq_hz`:
-/// the longest run of envelope blocks whose mean square lies within a
-/// tolerance of the tone's level, less one guard block at each end.
+/// The steady span of `x` (the aggressor channel) for a tone at `freq_hz`
+/// (known to a fraction of a block's bandwidth, e.g. from
+/// [`crate::dsp::fit::coarse_frequency`]): the longest run of envelope blocks
+/// whose tone level lies within a tolerance of the steady level, less one
+/// guard block at each end.
 /// The span is at least 20 periods and 50 ms long.
 pub fn steady_range(
     x: &[f32],
@@ -46,11 +48,27 @@ pub fn steady_range(
     if blocks < 5 {
         return Err(SteadyError::TooShort { frames: x.len() });
     }
+    // The tone's envelope: each block mixed down by e^{−jωn} and summed, so
+    // that noise outside the block's narrow band does not blur the level.
+    let omega = 2.0 * std::f64::consts::PI * freq_hz / sample_rate_hz;
+    let (ws, wc) = omega.sin_cos();
     let level: Vec<f64> = x
         .chunks_exact(block)
-        .map(|b| {
-            let ms = b.iter().map(|v| f64::from(*v).powi(2)).sum::<f64>() / block as f64;
-            10.0 * ms.max(1e-30).log10()
+        .enumerate()
+        .map(|(i, b)| {
+            let (s0, c0) = (omega * (i * block) as f64).sin_cos();
+            let (mut zr, mut zi) = (c0, -s0);
+            let (mut re, mut im) = (0.0, 0.0);
+            for v in b {
+                let v = f64::from(*v);
+                re += v * zr;
+                im += v * zi;
+                let nr = zr * wc + zi * ws;
+                zi = zi * wc - zr * ws;
+                zr = nr;
+            }
+            let amp2 = (re * re + im * im) * 4.0 / (block * block) as f64;
+            10.0 * amp2.max(1e-30).log10()
         })
         .collect();
     let mut sorted = level.clone();

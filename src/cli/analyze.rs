@@ -46,7 +46,10 @@ pub fn analyze_into(
     // Read the manifest first: a bad run folder is reported before anything is written.
     let manifest = septum::run::Manifest::load(run_dir)?;
     let staging = Staging::begin(out, Some(run_dir), force)?;
-    let pb = progress::bar(manifest.captures.len() as u64, "analysing");
+    let pb = progress::bar(
+        (manifest.captures.len() + manifest.common_drive.len()) as u64,
+        "analysing",
+    );
     if quiet {
         pb.set_draw_target(indicatif::ProgressDrawTarget::hidden());
     }

@@ -41,7 +41,11 @@ pub fn simulate_into(model: Option<&Path>, out: &Path, force: bool, quiet: bool)
     let resolved = model.resolve();
     let staging = Staging::begin(out, None, force)?;
     let captures = resolved.frequencies_hz.len() * resolved.channels.len()
-        + usize::from(model.stimulus.idle_samples > 0);
+        + usize::from(model.stimulus.idle_samples > 0)
+        + model
+            .common_drive
+            .as_ref()
+            .map_or(0, |c| c.frequencies_hz.len());
     let pb = progress::bar(captures as u64, "simulating");
     if quiet {
         pb.set_draw_target(indicatif::ProgressDrawTarget::hidden());

@@ -91,6 +91,7 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
         }
     }
     print_drive_quality(r);
+    print_common(r);
     print_coupling(r);
     let edge = r.floors.first().map_or(0.0, |f| f.usable_band_hz);
     println!(
@@ -197,6 +198,37 @@ fn print_drive_quality(r: &RunResults) {
         ]);
     }
     println!("{t}\n");
+}
+
+/// Gain match and skew from the common-drive captures.
+fn print_common(r: &RunResults) {
+    for c in &r.common {
+        println!(
+            "Common drive at {} Hz (one signal to every input; against channel {}; skew positive: samples later)",
+            c.frequency_hz, c.reference_channel
+        );
+        let mut t = table(&[
+            "channel",
+            "level (dBFS)",
+            "gain (dB)",
+            "± u95 (dB)",
+            "phase (°)",
+            "skew (µs)",
+            "± u95 (µs)",
+        ]);
+        for ch in &c.channels {
+            t.add_row(vec![
+                ch.channel.to_string(),
+                format!("{:.2}", ch.level_dbfs),
+                format!("{:+.4}", ch.gain_db),
+                format!("{:.1e}", ch.gain_u95_db),
+                format!("{:+.4}", ch.phase_deg),
+                format!("{:+.4}", ch.skew_us),
+                format!("{:.1e}", ch.skew_u95_us),
+            ]);
+        }
+        println!("{t}\n");
+    }
 }
 
 /// The coupling mechanism matrix (three or more test frequencies).

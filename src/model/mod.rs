@@ -72,6 +72,10 @@ pub struct FrontEndSection {
     /// Spread (standard deviation) of the per-channel noise floor, dB.
     #[serde(default)]
     pub noise_spread_db: f64,
+    /// Spread (standard deviation) of each input's sampling instant, µs
+    /// (0 for simultaneous sampling).
+    #[serde(default)]
+    pub skew_spread_us: f64,
     /// Termination of every victim input (free text written to run.json).
     #[serde(default = "default_termination")]
     pub termination: String,
@@ -186,6 +190,23 @@ pub struct PairOverride {
     pub capacitive_db: Option<f64>,
 }
 
+/// The common-drive step: one signal split to every input.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CommonDriveSection {
+    /// Test frequencies, Hz.
+    pub frequencies_hz: Vec<f64>,
+    /// Level at every input, dBFS.
+    pub level_dbfs: f64,
+    /// The channel the others are compared with.
+    #[serde(default = "one")]
+    pub reference_channel: u32,
+}
+
+fn one() -> u32 {
+    1
+}
+
 /// One input's overrides.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -210,6 +231,9 @@ pub struct ChannelOverride {
     /// Hum on this input relative to `[hum]`, dB.
     #[serde(default)]
     pub hum_db: Option<f64>,
+    /// Sampling instant relative to the nominal one, µs (later is positive).
+    #[serde(default)]
+    pub skew_us: Option<f64>,
 }
 
 /// A front-end model as written in a model file.
@@ -233,6 +257,9 @@ pub struct FrontEndModel {
     /// Per-input overrides.
     #[serde(default)]
     pub channel: Vec<ChannelOverride>,
+    /// Common-drive captures (one signal split to every input).
+    #[serde(default)]
+    pub common_drive: Option<CommonDriveSection>,
 }
 
 /// The default scenario's model file, with comments.
@@ -255,6 +282,8 @@ pub struct ResolvedChannel {
     pub noise_dbfs: f64,
     /// Hum relative to the `[hum]` levels, dB.
     pub hum_db: f64,
+    /// Sampling instant relative to the nominal one, µs (later is positive).
+    pub skew_us: f64,
 }
 
 /// The coupling of one ordered pair: `H(f) = shared + j·capacitive·f/1 kHz`
@@ -411,6 +440,27 @@ impl FrontEndModel {
                 ));
             }
         }
+        if let Some(c) = &self.common_drive {
+            if c.reference_channel == 0 || c.reference_channel > n {
+                return Err(format!(
+                    "common_drive.reference_channel {} is not an input from 1 to {n}",
+                    c.reference_channel
+                ));
+            }
+            if !(c.level_dbfs <= -0.5 && c.level_dbfs >= -140.0) {
+                return Err(format!(
+                    "common_drive.level_dbfs = {} must lie between -140 and -0.5 dBFS",
+                    c.level_dbfs
+                ));
+            }
+            for f in &c.frequencies_hz {
+                if !(*f > 0.0 && *f < 0.45 * fs) {
+                    return Err(format!(
+                        "common_drive frequency {f} Hz must lie between 0 and 0.45·fs"
+                    ));
+                }
+            }
+        }
         for c in &self.channel {
             if c.number == 0 || c.number > n {
                 return Err(format!(
@@ -447,7 +497,7 @@ impl FrontEndModel {
         let mut normal = || -> f64 { rng.sample(StandardNormal) };
         let channels = (1..=fe.channels)
             .map(|number| {
-                let (g, d, n) = (normal(), normal(), normal());
+                let (g, d, n, k) = (normal(), normal(), normal(), normal());
                 let o = self.channel.iter().find(|c| c.number == number);
                 ResolvedChannel {
                     number,
@@ -463,6 +513,7 @@ impl FrontEndModel {
                         .and_then(|o| o.noise_dbfs)
                         .unwrap_or(fe.noise_dbfs + n * fe.noise_spread_db),
                     hum_db: o.and_then(|o| o.hum_db).unwrap_or(0.0),
+                    skew_us: o.and_then(|o| o.skew_us).unwrap_or(k * fe.skew_spread_us),
                 }
             })
             .collect();

@@ -2,11 +2,14 @@
 //! (test frequency, aggressor) and an idle capture, written as the run format
 //! prescribes, plus the model and its expected figures under `model/`.
 
-use super::truth::{expected_channels, expected_coupling, expected_drive, expected_pairs, gain};
+use super::truth::{
+    expected_channels, expected_common, expected_coupling, expected_drive, expected_pairs, gain,
+};
 use super::Resolved;
 use crate::dsp::level::{dbfs_to_amplitude, dbfs_to_rms};
 use crate::run::{
-    write_capture, CaptureEntry, ChannelEntry, Drive, Manifest, RunError, RUN_FORMAT,
+    manifest::CommonDriveEntry, write_capture, CaptureEntry, ChannelEntry, Drive, Manifest,
+    RunError, RUN_FORMAT,
 };
 use rand::{Rng, SeedableRng};
 use rand_distr::StandardNormal;
@@ -68,14 +71,19 @@ fn format_freq(f: f64) -> String {
 }
 
 /// Synthesise one capture: `drive` is `(aggressor index, nominal Hz)`.
-fn synth_capture(r: &Resolved, drive: Option<(usize, f64)>, seed: u64) -> Vec<Vec<f64>> {
+fn synth_capture(
+    r: &Resolved,
+    drive: Option<(usize, f64)>,
+    common: Option<(f64, f64)>,
+    seed: u64,
+) -> Vec<Vec<f64>> {
     let m = &r.model;
     let fe = &m.front_end;
     let st = &m.stimulus;
     let fs = f64::from(fe.sample_rate_hz);
     let mut rng = rand::rngs::StdRng::seed_from_u64(seed);
     let secs = |s: f64| (s * fs).round() as usize;
-    let timing = match drive {
+    let timing = match drive.map(|d| d.1).or(common.map(|c| c.0)) {
         Some(_) => Timing {
             latency: secs(st.latency_s),
             ramp: secs(st.ramp_s),
@@ -90,9 +98,10 @@ fn synth_capture(r: &Resolved, drive: Option<(usize, f64)>, seed: u64) -> Vec<Ve
         },
     };
     let mut tones = Vec::new();
-    if let Some((_, f)) = drive {
+    let tone = drive.map(|(_, f)| (f, st.level_dbfs)).or(common);
+    if let Some((f, level)) = tone {
         let fg = f * (1.0 + st.generator_offset_ppm * 1e-6);
-        let a = dbfs_to_amplitude(st.level_dbfs);
+        let a = dbfs_to_amplitude(level);
         tones.push(Tone {
             amp: a,
             freq: fg,
@@ -126,15 +135,22 @@ fn synth_capture(r: &Resolved, drive: Option<(usize, f64)>, seed: u64) -> Vec<Ve
     let paths: Vec<Vec<(f64, f64)>> = (0..n_ch)
         .map(|c| {
             let g = gain(r, c);
+            let skew = r.channels[c].skew_us * 1e-6;
             tones
                 .iter()
-                .map(|t| match drive {
-                    Some((a, _)) if a == c => (g, 0.0),
-                    Some((a, _)) => {
-                        let (re, im) = r.coupling[a][c].at(t.freq);
-                        (g * re, g * im)
-                    }
-                    None => (0.0, 0.0),
+                .map(|t| {
+                    let (re, im) = match drive {
+                        Some((a, _)) if a == c => (g, 0.0),
+                        Some((a, _)) => {
+                            let (re, im) = r.coupling[a][c].at(t.freq);
+                            (g * re, g * im)
+                        }
+                        None if common.is_some() => (g, 0.0),
+                        None => (0.0, 0.0),
+                    };
+                    // A channel sampling `skew` later sees the tone advanced by 2π·f·skew.
+                    let (s, k) = (2.0 * PI * t.freq * skew).sin_cos();
+                    (re * k - im * s, re * s + im * k)
                 })
                 .collect()
         })
@@ -197,21 +213,41 @@ pub fn write_run(
     let mkdir = |p: &Path| std::fs::create_dir_all(p).map_err(|e| RunError::io(p, e));
     mkdir(&dir.join("captures"))?;
     mkdir(&dir.join("model"))?;
-    let mut plan: Vec<(String, Option<(usize, f64)>)> = Vec::new();
+    type Step = (String, Option<(usize, f64)>, Option<(f64, f64)>);
+    let mut plan: Vec<Step> = Vec::new();
     for &f in &r.frequencies_hz {
         for a in 0..r.channels.len() {
-            plan.push((drive_file(plan.len() + 1, a as u32 + 1, f), Some((a, f))));
+            plan.push((
+                drive_file(plan.len() + 1, a as u32 + 1, f),
+                Some((a, f)),
+                None,
+            ));
         }
     }
     if st.idle_samples > 0 {
-        plan.push((format!("captures/{:03}-idle.wav", plan.len() + 1), None));
+        plan.push((
+            format!("captures/{:03}-idle.wav", plan.len() + 1),
+            None,
+            None,
+        ));
+    }
+    if let Some(c) = &r.model.common_drive {
+        for &f in &c.frequencies_hz {
+            let file = format!(
+                "captures/{:03}-common-{}Hz.wav",
+                plan.len() + 1,
+                format_freq(f)
+            );
+            plan.push((file, None, Some((f, c.level_dbfs))));
+        }
     }
     plan.par_iter()
         .enumerate()
-        .try_for_each(|(i, (file, drive))| {
+        .try_for_each(|(i, (file, drive, common))| {
             let data = synth_capture(
                 r,
                 *drive,
+                *common,
                 r.model.seed.wrapping_mul(1_000_003).wrapping_add(i as u64),
             );
             write_capture(&dir.join(file), &data, fe.sample_rate_hz, fe.wav)?;
@@ -252,7 +288,8 @@ pub fn write_run(
             .collect(),
         captures: plan
             .iter()
-            .map(|(file, drive)| CaptureEntry {
+            .filter(|(_, _, common)| common.is_none())
+            .map(|(file, drive, _)| CaptureEntry {
                 file: file.clone(),
                 drive: drive.map(|(a, f)| Drive {
                     channel: a as u32 + 1,
@@ -260,6 +297,22 @@ pub fn write_run(
                     level_dbfs: st.level_dbfs,
                 }),
                 extra: Map::new(),
+            })
+            .collect(),
+        common_drive: plan
+            .iter()
+            .filter_map(|(file, _, common)| {
+                common.map(|(f, level)| CommonDriveEntry {
+                    file: file.clone(),
+                    frequency_hz: f,
+                    level_dbfs: level,
+                    reference_channel: r
+                        .model
+                        .common_drive
+                        .as_ref()
+                        .map_or(1, |c| c.reference_channel),
+                    extra: Map::new(),
+                })
             })
             .collect(),
         extra,
@@ -334,5 +387,13 @@ fn write_model_files(r: &Resolved, model_text: &str, dir: &Path) -> Result<(), R
             c.aggressor, c.victim, c.shared_db, c.rising_db_at_1khz
         );
     }
-    write("expected-coupling.csv", coupling)
+    write("expected-coupling.csv", coupling)?;
+    let mut common = String::from("frequency_hz,channel,gain_db,skew_us\n");
+    for c in expected_common(r) {
+        common += &format!(
+            "{},{},{:.6},{:.6}\n",
+            c.frequency_hz, c.channel, c.gain_db, c.skew_us
+        );
+    }
+    write("expected-common.csv", common)
 }

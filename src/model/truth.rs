@@ -80,6 +80,39 @@ pub struct ExpectedCoupling {
     pub rising_db_at_1khz: f64,
 }
 
+/// The exact gain and skew of one input in a common-drive capture.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ExpectedCommon {
+    /// Test frequency, Hz.
+    pub frequency_hz: f64,
+    /// Input.
+    pub channel: u32,
+    /// Gain against the reference input, dB.
+    pub gain_db: f64,
+    /// Sampling instant against the reference input, µs.
+    pub skew_us: f64,
+}
+
+/// Expected gain match and skew (the coupling between inputs, −90 dB and
+/// below, is left out: it moves these figures by under 1e-4 dB).
+pub fn expected_common(r: &Resolved) -> Vec<ExpectedCommon> {
+    let Some(c) = &r.model.common_drive else {
+        return Vec::new();
+    };
+    let reference = c.reference_channel as usize - 1;
+    c.frequencies_hz
+        .iter()
+        .flat_map(|f| {
+            (0..r.channels.len()).map(move |ch| ExpectedCommon {
+                frequency_hz: *f,
+                channel: ch as u32 + 1,
+                gain_db: r.channels[ch].gain_db - r.channels[reference].gain_db,
+                skew_us: r.channels[ch].skew_us - r.channels[reference].skew_us,
+            })
+        })
+        .collect()
+}
+
 /// Usable band edge as a fraction of the sample rate (fs/2.56).
 pub const USABLE_BAND_RATIO: f64 = 2.56;
 

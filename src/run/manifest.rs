@@ -49,6 +49,22 @@ pub struct CaptureEntry {
     pub extra: Map<String, Value>,
 }
 
+/// A capture in which one signal drove every input at once.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CommonDriveEntry {
+    /// WAV path relative to the run folder.
+    pub file: String,
+    /// Nominal tone frequency, Hz.
+    pub frequency_hz: f64,
+    /// Nominal tone level, dBFS.
+    pub level_dbfs: f64,
+    /// Channel the others are compared with.
+    pub reference_channel: u32,
+    /// Keys this version does not know, kept.
+    #[serde(flatten)]
+    pub extra: Map<String, Value>,
+}
+
 /// The manifest of a run folder.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Manifest {
@@ -60,6 +76,11 @@ pub struct Manifest {
     pub channels: Vec<ChannelEntry>,
     /// The captures.
     pub captures: Vec<CaptureEntry>,
+    /// Common-drive captures: one signal split to every input, for gain
+    /// match and inter-channel skew. An additive key: readers that do not
+    /// know it pass it through and are not misled.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub common_drive: Vec<CommonDriveEntry>,
     /// Other keys (`front_end`, `created`, operator …), passed through.
     #[serde(flatten)]
     pub extra: Map<String, Value>,
@@ -166,6 +187,35 @@ impl Manifest {
                         d.channel, d.frequency_hz
                     ));
                 }
+            }
+        }
+        for (i, c) in self.common_drive.iter().enumerate() {
+            if c.file.trim().is_empty()
+                || Path::new(&c.file).is_absolute()
+                || c.file.split(['/', '\\']).any(|p| p == "..")
+            {
+                return Err(format!(
+                    "common_drive[{i}].file \"{}\" must be a path inside the run folder",
+                    c.file
+                ));
+            }
+            if !files.insert(c.file.as_str()) {
+                return Err(format!(
+                    "common_drive[{i}].file \"{}\" is listed twice",
+                    c.file
+                ));
+            }
+            if c.reference_channel == 0 || c.reference_channel as usize > self.channels.len() {
+                return Err(format!(
+                    "common_drive[{i}].reference_channel {} is not a recorded channel (1 to {})",
+                    c.reference_channel,
+                    self.channels.len()
+                ));
+            }
+            if !(c.frequency_hz > 0.0 && c.frequency_hz < nyquist) || !c.level_dbfs.is_finite() {
+                return Err(format!(
+                    "common_drive[{i}]: frequency_hz must lie between 0 and {nyquist} Hz and level_dbfs be a number"
+                ));
             }
         }
         Ok(())
