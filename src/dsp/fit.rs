@@ -167,9 +167,7 @@ impl BasisBlock {
     }
 }
 
-fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(x, y)| x * y).sum()
-}
+use super::kernels::{dot, sum, widen};
 
 fn dot_f32(x: &[f32], b: &[f64]) -> f64 {
     x.iter().zip(b).map(|(x, y)| f64::from(*x) * y).sum()
@@ -226,17 +224,19 @@ pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>,
     let mut proj = vec![vec![0.0; p]; channels.len()];
     let mut sum_sq = vec![0.0; channels.len()];
     let mut basis = BasisBlock::new(model.terms);
+    let mut xf = vec![0.0; BLOCK];
     let mut n0 = 0;
     while n0 < len {
         let m = BLOCK.min(len - n0);
         basis.fill(model, n0, m);
         for (c, x) in channels.iter().enumerate() {
-            let x = &x[n0..n0 + m];
+            let xf = &mut xf[..m];
+            widen(&x[n0..n0 + m], xf);
             let b = &mut proj[c];
-            b[0] += x.iter().map(|v| f64::from(*v)).sum::<f64>();
-            sum_sq[c] += x.iter().map(|v| f64::from(*v) * f64::from(*v)).sum::<f64>();
+            b[0] += sum(xf);
+            sum_sq[c] += dot(xf, xf);
             for (i, bi) in b.iter_mut().enumerate().skip(1) {
-                *bi += dot_f32(x, &basis.column(i).unwrap()[..m]);
+                *bi += dot(xf, &basis.column(i).unwrap()[..m]);
             }
         }
         n0 += m;

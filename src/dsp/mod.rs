@@ -7,6 +7,7 @@
 
 pub mod fit;
 pub mod freqs;
+pub mod kernels;
 pub mod level;
 pub mod linalg;
 pub mod noise;
