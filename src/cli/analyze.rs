@@ -31,6 +31,9 @@ pub struct Args {
     /// the results folder; the exit code tells the verdict: 0, 3 or 4).
     #[command(flatten)]
     pub against: check::Against,
+    /// Also write an HTML report of the results (and the verdict) to this file.
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
 }
 
 /// Analyse `run_dir` into `out`; returns the results for callers that go on.
@@ -82,6 +85,9 @@ pub fn run(args: Args) -> Result<u8> {
         detection_factor: args.detection_factor,
         ..AnalysisConfig::default()
     };
+    if let Some(r) = &args.report {
+        super::report::check_target(r, args.force)?;
+    }
     // Read the limits, claims and baseline before anything is written.
     let inputs = if args.against.any() {
         Some(args.against.load()?)
@@ -109,6 +115,13 @@ pub fn run(args: Args) -> Result<u8> {
     )?;
     if !args.quiet {
         summary::print(&results, &args.run_dir, &args.out);
+    }
+    if let Some(path) = &args.report {
+        let folder = septum::run::ResultsFolder::load(&args.out)?;
+        super::report::write_report(&folder, inputs.as_ref(), path)?;
+        if !args.quiet {
+            println!("report: {}", path.display());
+        }
     }
     let Some((folder, v)) = verdict else {
         return Ok(super::exit::OK);

@@ -6,6 +6,7 @@ mod check;
 mod demo;
 mod devices;
 mod progress;
+mod report;
 mod simulate;
 mod summary;
 mod verdict_tables;
@@ -55,6 +56,7 @@ pub struct Cli {
 enum Command {
     Analyze(analyze::Args),
     Check(check::Args),
+    Report(report::Args),
     Simulate(simulate::Args),
     Demo(demo::Args),
     Devices(devices::Args),
@@ -76,6 +78,7 @@ pub fn main() -> ExitCode {
     let result = match cli.command {
         Command::Analyze(a) => analyze::run(a),
         Command::Check(a) => check::run(a),
+        Command::Report(a) => report::run(a),
         Command::Simulate(a) => simulate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Devices(a) => devices::run(a),
@@ -112,6 +115,11 @@ mod tests {
         Cli::try_parse_from(["septum", "demo"]).unwrap();
         Cli::try_parse_from(["septum", "devices"]).unwrap();
         Cli::try_parse_from(["septum", "check", "res", "--limits", "l.toml"]).unwrap();
+        Cli::try_parse_from(["septum", "report", "res", "--out", "r.html"]).unwrap();
+        Cli::try_parse_from([
+            "septum", "analyze", "run", "--out", "res", "--report", "r.html",
+        ])
+        .unwrap();
         Cli::try_parse_from([
             "septum",
             "check",
