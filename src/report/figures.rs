@@ -206,8 +206,8 @@ pub fn heatmap(r: &ResultsFolder, frequency_hz: f64, range: (f64, f64), id: &str
 pub fn heat_legend(range: (f64, f64)) -> String {
     let (lo, hi) = range;
     let (w, left) = (420.0, 20.0);
-    let mut s = format!(
-        r#"<svg class="legend" viewBox="0 0 480 58" width="480" role="img" aria-label="colour key: separation in dB" xmlns="http://www.w3.org/2000/svg">"#
+    let mut s = String::from(
+        r#"<svg class="legend" viewBox="0 0 480 58" width="480" role="img" aria-label="colour key: separation in dB" xmlns="http://www.w3.org/2000/svg">"#,
     );
     let steps = 84;
     for i in 0..steps {
@@ -237,7 +237,10 @@ pub fn heat_legend(range: (f64, f64)) -> String {
     s
 }
 
-fn pair_series(r: &ResultsFolder) -> Vec<((u32, u32), Vec<(f64, f64, bool)>)> {
+/// A pair's points: (frequency, separation, floor-limited), by frequency.
+type Series = ((u32, u32), Vec<(f64, f64, bool)>);
+
+fn pair_series(r: &ResultsFolder) -> Vec<Series> {
     let mut keys: Vec<(u32, u32)> = r.pairs.iter().map(|p| (p.aggressor, p.victim)).collect();
     keys.sort_unstable();
     keys.dedup();

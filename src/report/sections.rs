@@ -178,10 +178,9 @@ pub fn channels(r: &ResultsFolder) -> String {
         .and_then(|c| c.floor_band_hz)
         .map(|b| format!(" over 0 Hz to {} Hz", fmt_hz(b)))
         .unwrap_or_default();
-    let _ = write!(
+    let _ = writeln!(
         s,
-        r#"</tbody></table><p class="note">Noise floor: the broadband rms left after removing DC, the tone and its harmonics{band}, in dBFS (0 dBFS is the rms of a sine whose peak reaches full scale). Dynamic range here is a full-scale sine (0 dBFS) over that floor, i.e. minus the floor in dBFS.</p></section>
-"#
+        r#"</tbody></table><p class="note">Noise floor: the broadband rms left after removing DC, the tone and its harmonics{band}, in dBFS (0 dBFS is the rms of a sine whose peak reaches full scale). Dynamic range here is a full-scale sine (0 dBFS) over that floor, i.e. minus the floor in dBFS.</p></section>"#
     );
     s
 }
