@@ -486,3 +486,59 @@ fn analyze_with_limits_on_simulated_runs() {
     assert!(e.contains("nope.toml"), "{e}");
     assert!(!w.path("res3").exists());
 }
+
+/// Two simulated runs of the same front end (same seed): the second with the
+/// panel's 4 → 5 coupling 10 dB stronger. Against the first as a baseline,
+/// 4 → 5 got worse at every frequency and nothing else moved.
+#[test]
+fn baseline_on_simulated_runs() {
+    let w = Workdir::new();
+    let small = [
+        ("record_samples = 65536", "record_samples = 16384"),
+        ("idle_samples = 65536", "idle_samples = 16384"),
+    ];
+    let m = w.model("then.toml", &small);
+    w.ok(&[
+        "simulate",
+        "-q",
+        "--out",
+        "run-then",
+        "--model",
+        m.to_str().unwrap(),
+    ]);
+    w.ok(&["analyze", "-q", "run-then", "--out", "then"]);
+    let mut edits = small.to_vec();
+    edits.push(("shared_db = -112.0", "shared_db = -102.0"));
+    edits.push(("capacitive_db = -97.0", "capacitive_db = -87.0"));
+    let m = w.model("now.toml", &edits);
+    w.ok(&[
+        "simulate",
+        "-q",
+        "--out",
+        "run-now",
+        "--model",
+        m.to_str().unwrap(),
+    ]);
+    w.ok(&["analyze", "-q", "run-now", "--out", "now"]);
+    let (code, out) = run(&w, &["check", "now", "--baseline", "then"]);
+    assert_eq!(code, 3, "{out}");
+    let v = verdict_json(&w, "now");
+    let pairs = v["baseline"]["pairs"].as_array().unwrap();
+    let worse: Vec<_> = pairs.iter().filter(|p| p["outcome"] == "fail").collect();
+    assert_eq!(worse.len(), 4, "4 → 5 at each of the 4 test frequencies");
+    for p in &worse {
+        assert_eq!(
+            (p["aggressor"].as_u64(), p["victim"].as_u64()),
+            (Some(4), Some(5))
+        );
+        // Both coupling paths 10 dB up: 10 dB less separation (the model's
+        // own figure; tolerance for noise on the victim).
+        assert!((p["drift_db"].as_f64().unwrap() + 10.0).abs() < 0.5, "{p}");
+    }
+    assert!(pairs.iter().all(|p| p["outcome"] != "inconclusive"));
+    // The comparison the other way round: 4 → 5 improved, nothing worse.
+    assert_eq!(
+        run(&w, &["check", "then", "--baseline", "now", "--no-write"]).0,
+        0
+    );
+}
