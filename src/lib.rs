@@ -8,6 +8,9 @@
 //! - [`analysis`]: steady-part finding, per-capture fits, separation, detection
 //!   limits, noise floors, warnings and the leakage matrix.
 //! - [`model`]: the simulated front end and its exact expected figures.
+//! - [`report`]: the self-contained HTML report (inline SVG figures).
+//! - [`verdict`]: pass limits, data-sheet claims and baselines judged on a
+//!   results folder read back from disk.
 //!
 //! Conventions used everywhere: channels are numbered from 1; 0 dBFS is the
 //! rms level of a sine whose peak reaches full scale (±1.0), so a sine of peak
@@ -29,4 +32,6 @@
 pub mod analysis;
 pub mod dsp;
 pub mod model;
+pub mod report;
 pub mod run;
+pub mod verdict;

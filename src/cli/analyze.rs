@@ -1,6 +1,6 @@
 //! `septum analyze`: replay analysis of a run folder into a results folder.
 
-use super::{progress, summary};
+use super::{check, progress, summary};
 use anyhow::Result;
 use septum::analysis::{analyze_run, export::write_results, AnalysisConfig};
 use septum::run::results::Staging;
@@ -27,6 +27,13 @@ pub struct Args {
     /// Print nothing but errors.
     #[arg(long, short)]
     pub quiet: bool,
+    /// Judge the results right away (writes verdict.json and verdict.csv into
+    /// the results folder; the exit code tells the verdict: 0, 3 or 4).
+    #[command(flatten)]
+    pub against: check::Against,
+    /// Also write an HTML report of the results (and the verdict) to this file.
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
 }
 
 /// Analyse `run_dir` into `out`; returns the results for callers that go on.
@@ -36,6 +43,20 @@ pub fn analyze_into(
     force: bool,
     config: &AnalysisConfig,
     quiet: bool,
+) -> Result<septum::analysis::RunResults> {
+    analyze_then(run_dir, out, force, config, quiet, &mut |_| Ok(()))
+}
+
+/// The same, calling `more` with the staging folder once the results are
+/// written into it and before it is moved into place, so whatever `more`
+/// adds arrives together with them.
+pub fn analyze_then(
+    run_dir: &Path,
+    out: &Path,
+    force: bool,
+    config: &AnalysisConfig,
+    quiet: bool,
+    more: &mut dyn FnMut(&Path) -> Result<()>,
 ) -> Result<septum::analysis::RunResults> {
     if !(config.detection_factor > 1.0 && config.detection_factor < 20.0) {
         anyhow::bail!(
@@ -56,6 +77,7 @@ pub fn analyze_into(
     let results = analyze_run(run_dir, config, &|| pb.inc(1))?;
     pb.finish_and_clear();
     write_results(&results, staging.path())?;
+    more(staging.path())?;
     staging.commit()?;
     Ok(results)
 }
@@ -66,9 +88,50 @@ pub fn run(args: Args) -> Result<u8> {
         detection_factor: args.detection_factor,
         ..AnalysisConfig::default()
     };
-    let results = analyze_into(&args.run_dir, &args.out, args.force, &config, args.quiet)?;
+    if let Some(r) = &args.report {
+        super::report::check_target(r, args.force)?;
+    }
+    // Read the limits, claims and baseline before anything is written.
+    let inputs = if args.against.any() {
+        Some(args.against.load()?)
+    } else {
+        None
+    };
+    let mut verdict = None;
+    let results = analyze_then(
+        &args.run_dir,
+        &args.out,
+        args.force,
+        &config,
+        args.quiet,
+        &mut |staging| {
+            if let Some(inputs) = &inputs {
+                // Judge what was written, read back like any results folder.
+                let mut folder = septum::run::ResultsFolder::load(staging)?;
+                folder.dir = args.out.clone();
+                let v = septum::verdict::evaluate(&folder, inputs)?;
+                septum::verdict::export::write(&v, staging)?;
+                verdict = Some((folder, v));
+            }
+            Ok(())
+        },
+    )?;
     if !args.quiet {
         summary::print(&results, &args.run_dir, &args.out);
     }
-    Ok(super::exit::OK)
+    if let Some(path) = &args.report {
+        let folder = septum::run::ResultsFolder::load(&args.out)?;
+        super::report::write_report(&folder, inputs.as_ref(), path)?;
+        if !args.quiet {
+            println!("report: {}", path.display());
+        }
+    }
+    let Some((folder, v)) = verdict else {
+        return Ok(super::exit::OK);
+    };
+    if !args.quiet {
+        println!();
+        super::verdict_tables::print(&v, &folder);
+    }
+    Ok(super::exit::for_outcome(v.outcome))
 }

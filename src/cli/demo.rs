@@ -8,8 +8,9 @@ use septum::model::truth::{expected_channels, expected_pairs};
 use septum::model::FrontEndModel;
 use std::path::PathBuf;
 
-/// Simulate the built-in 8-channel scenario, analyse it and print the
-/// summary, in one command. Nothing is played or recorded.
+/// Simulate the built-in 8-channel scenario, analyse it, print the summary
+/// and write report.html (judged against the example limits and claims), in
+/// one command. Nothing is played or recorded.
 #[derive(Debug, clap::Args)]
 pub struct Args {
     /// Folder for the demo's run and results (default: ./septum-demo, or
@@ -84,5 +85,37 @@ pub fn run(args: Args) -> Result<u8> {
         t1.as_secs_f64(),
         t2.as_secs_f64()
     );
+    let report = base.join("report.html");
+    let folder = septum::run::ResultsFolder::load(&results_dir)?;
+    let v = super::report::write_report(&folder, Some(&example_inputs()), &report)?;
+    println!();
+    println!(
+        "report: {} (judged against the example limits and claims of procedures/: {})",
+        report.display(),
+        v.map_or("no verdict", |v| v.outcome.word())
+    );
     Ok(super::exit::OK)
+}
+
+/// The example limits and claims shipped in procedures/, built in.
+fn example_inputs() -> septum::verdict::Inputs {
+    use septum::verdict::{claims::Claims, limits::Limits};
+    let lp = PathBuf::from("procedures/limits-commissioning.toml (built in)");
+    let cp = PathBuf::from("procedures/claims-example.toml (built in)");
+    septum::verdict::Inputs {
+        limits: Some((
+            lp.clone(),
+            Limits::parse(
+                include_str!("../../procedures/limits-commissioning.toml"),
+                &lp,
+            )
+            .expect("the example limits are valid"),
+        )),
+        claims: Some((
+            cp.clone(),
+            Claims::parse(include_str!("../../procedures/claims-example.toml"), &cp)
+                .expect("the example claims are valid"),
+        )),
+        baseline: None,
+    }
 }

@@ -2,11 +2,14 @@
 //! text), one module per command, exit codes, terminal output.
 
 mod analyze;
+mod check;
 mod demo;
 mod devices;
 mod progress;
+mod report;
 mod simulate;
 mod summary;
+mod verdict_tables;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -20,12 +23,19 @@ pub mod exit {
     /// The command line itself was wrong (clap's usage errors).
     pub const USAGE: u8 = 2;
     /// A verdict was asked for and something failed its limit or claim.
-    #[allow(dead_code)]
     pub const FAIL: u8 = 3;
     /// A verdict was asked for; nothing failed, but something could not be
     /// decided within the measurement's uncertainty.
-    #[allow(dead_code)]
     pub const INCONCLUSIVE: u8 = 4;
+
+    /// The exit code of a verdict.
+    pub fn for_outcome(o: septum::verdict::Outcome) -> u8 {
+        match o {
+            septum::verdict::Outcome::Pass => OK,
+            septum::verdict::Outcome::Fail => FAIL,
+            septum::verdict::Outcome::Inconclusive => INCONCLUSIVE,
+        }
+    }
 }
 
 /// Channel-isolation and leakage measurement for multichannel sound cards
@@ -45,6 +55,8 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 enum Command {
     Analyze(analyze::Args),
+    Check(check::Args),
+    Report(report::Args),
     Simulate(simulate::Args),
     Demo(demo::Args),
     Devices(devices::Args),
@@ -65,6 +77,8 @@ pub fn main() -> ExitCode {
     };
     let result = match cli.command {
         Command::Analyze(a) => analyze::run(a),
+        Command::Check(a) => check::run(a),
+        Command::Report(a) => report::run(a),
         Command::Simulate(a) => simulate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Devices(a) => devices::run(a),
@@ -100,6 +114,48 @@ mod tests {
         Cli::try_parse_from(["septum", "simulate", "--out", "run", "--model", "m.toml"]).unwrap();
         Cli::try_parse_from(["septum", "demo"]).unwrap();
         Cli::try_parse_from(["septum", "devices"]).unwrap();
+        Cli::try_parse_from(["septum", "check", "res", "--limits", "l.toml"]).unwrap();
+        Cli::try_parse_from(["septum", "report", "res", "--out", "r.html"]).unwrap();
+        Cli::try_parse_from([
+            "septum", "analyze", "run", "--out", "res", "--report", "r.html",
+        ])
+        .unwrap();
+        Cli::try_parse_from([
+            "septum",
+            "check",
+            "res",
+            "--baseline",
+            "old",
+            "--tolerance-db",
+            "2",
+            "--channels",
+            "1-4",
+            "--frequencies",
+            "1000,4000",
+        ])
+        .unwrap();
+        // A verdict needs something to judge against; options need --baseline.
+        assert!(Cli::try_parse_from(["septum", "check", "res"]).is_err());
+        assert!(Cli::try_parse_from([
+            "septum",
+            "check",
+            "res",
+            "--limits",
+            "l",
+            "--tolerance-db",
+            "2"
+        ])
+        .is_err());
+        assert!(Cli::try_parse_from([
+            "septum",
+            "check",
+            "res",
+            "--baseline",
+            "o",
+            "--tolerance-db",
+            "-1"
+        ])
+        .is_err());
         assert!(Cli::try_parse_from(["septum", "analyze", "run"]).is_err());
     }
 }

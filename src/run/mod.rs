@@ -2,10 +2,12 @@
 //! multichannel WAV captures) and the results folder (CSV and JSON).
 
 pub mod manifest;
+pub mod read;
 pub mod results;
 pub mod wav;
 
 pub use manifest::{CaptureEntry, ChannelEntry, Drive, Manifest, RUN_FORMAT};
+pub use read::ResultsFolder;
 pub use wav::{read_capture, write_capture, Capture, WavFormat};
 
 use std::path::PathBuf;
@@ -35,6 +37,14 @@ pub enum RunError {
     #[error("{path}: {message}")]
     Wav {
         /// The capture file.
+        path: PathBuf,
+        /// What is wrong.
+        message: String,
+    },
+    /// A results file read back is missing a part, malformed or inconsistent.
+    #[error("{path}: {message}")]
+    ResultsInput {
+        /// The file or folder.
         path: PathBuf,
         /// What is wrong.
         message: String,

@@ -149,3 +149,34 @@ pub fn fmt_opt(v: Option<f64>, decimals: usize) -> String {
 pub fn leakage_file_name(frequency_hz: f64) -> String {
     format!("leakage-{frequency_hz}Hz.csv")
 }
+
+/// Write `bytes` to `path` atomically: into a temporary file beside it, then
+/// renamed over it, so an earlier file survives any failure.
+pub fn write_file_atomic(path: &Path, bytes: &[u8]) -> Result<(), RunError> {
+    let name = path.file_name().ok_or_else(|| RunError::Results {
+        path: path.to_path_buf(),
+        message: "has no file name".into(),
+    })?;
+    if path.is_dir() {
+        return Err(RunError::Results {
+            path: path.to_path_buf(),
+            message: "is a folder; a file name was expected".into(),
+        });
+    }
+    let tmp = path.with_file_name(format!(
+        ".{}.partial-{}",
+        name.to_string_lossy(),
+        std::process::id()
+    ));
+    let result = (|| {
+        use std::io::Write;
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    result.map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        RunError::io(path, e)
+    })
+}

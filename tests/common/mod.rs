@@ -181,3 +181,40 @@ pub fn agreement(run: &Path, results: &Path) -> Agreement {
     }
     a
 }
+
+/// One pair of a hand-built results folder: (frequency, aggressor, victim,
+/// separation, floor-limited, u95).
+pub type PairSpec = (f64, u32, u32, f64, bool, Option<f64>);
+
+/// Write a hand-built results folder into `dir`: pairs.csv, channels.csv
+/// (`floors` in dBFS, one per channel, all with `termination`) and a
+/// summary.json for the invented Mossgate test bench.
+pub fn results_folder(dir: &Path, pairs: &[PairSpec], floors: &[f64], termination: &str) {
+    std::fs::create_dir_all(dir).unwrap();
+    let mut p = String::from(
+        "frequency_hz,aggressor,victim,separation_db,victim_dbfs,floor_limited,separation_u95_db\n",
+    );
+    for (f, a, v, s, fl, u) in pairs {
+        p += &format!(
+            "{f},{a},{v},{s},{},{fl},{}\n",
+            -1.0 - s,
+            u.map_or(String::new(), |u| u.to_string())
+        );
+    }
+    std::fs::write(dir.join("pairs.csv"), p).unwrap();
+    let mut c = String::from("channel,noise_floor_dbfs,name,termination\n");
+    for (i, fl) in floors.iter().enumerate() {
+        c += &format!("{},{fl},in {},{termination}\n", i + 1, i + 1);
+    }
+    std::fs::write(dir.join("channels.csv"), c).unwrap();
+    let summary = serde_json::json!({
+        "format": "septum.results/1",
+        "run": {
+            "sample_rate_hz": 48000,
+            "front_end": {"label": "Mossgate Vibration Lab, test bench", "serial": "MVL-T-1"},
+        },
+        "captures": [{"drive": {"channel": 1, "frequency_hz": 1000.0, "level_dbfs": -1.0}}],
+        "warnings": [],
+    });
+    std::fs::write(dir.join("summary.json"), summary.to_string()).unwrap();
+}
