@@ -4,8 +4,10 @@
 use super::quality::{drive_quality, out_of_band_peak, DriveQuality};
 use super::steady::steady_range;
 use super::AnalysisConfig;
-use crate::dsp::fit::{coarse_frequency, estimate_frequency, fit_tones, residual_into, ToneModel};
-use crate::dsp::noise::quadrature_sigma;
+use crate::dsp::fit::{
+    coarse_frequency, estimate_frequency, fit_tones, residual_pass, ToneModel, DECIMATION,
+};
+use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Capture, Drive};
@@ -75,6 +77,18 @@ pub fn analyze_capture(
     drive: Option<Drive>,
     config: &AnalysisConfig,
 ) -> Result<CaptureAnalysis, String> {
+    analyze_capture_with(capture, file, drive, config, true)
+}
+
+/// [`analyze_capture`], measuring the band-limited noise only when
+/// `need_bands` (captures that feed the noise floors).
+pub fn analyze_capture_with(
+    capture: &Capture,
+    file: &str,
+    drive: Option<Drive>,
+    config: &AnalysisConfig,
+    need_bands: bool,
+) -> Result<CaptureAnalysis, String> {
     let fs = f64::from(capture.sample_rate_hz);
     let frames = capture.frames();
     let (span, model) = match drive {
@@ -111,62 +125,91 @@ pub fn analyze_capture(
         Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
         None => None,
     };
-    let channels: Vec<ChannelFit> = slices
+    // Per channel over the whole capture: peak, clipping, out-of-band check.
+    let whole: Vec<(f64, usize, f64)> = capture
+        .channels
         .iter()
-        .enumerate()
-        .map(|(i, x)| {
-            let full = &capture.channels[i];
-            let peak = full.iter().fold(0.0f64, |p, v| p.max(f64::from(v.abs())));
-            let clipped = full
+        .map(|full| {
+            let peak = full.iter().fold(0.0f32, |p, v| p.max(v.abs()));
+            let clip = config.clip_level as f32;
+            let clipped = full.iter().filter(|v| v.abs() >= clip).count();
+            (
+                f64::from(peak),
+                clipped,
+                out_of_band_peak(full, fs, usable_edge),
+            )
+        })
+        .collect();
+    let len = span.len() as f64;
+    let keep = vec![need_bands; slices.len()];
+    let mut kept: Vec<Vec<f64>> = vec![Vec::new(); slices.len()];
+    let channels: Vec<ChannelFit> = match (&model, &fits) {
+        (Some(m), Some(fits)) => {
+            let stats = residual_pass(&slices, fits, m, &keep, &mut kept);
+            stats
                 .iter()
-                .filter(|v| f64::from(v.abs()) >= config.clip_level)
-                .count();
-            let len = x.len() as f64;
-            let out_of_band_peak = out_of_band_peak(full, fs, usable_edge);
-            match (&model, &fits) {
-                (Some(m), Some(fits)) => {
-                    let fit = &fits[i];
-                    let ss = residual_into(x, fit, m, &mut residual);
-                    let sigma =
-                        quadrature_sigma(&residual, m.freq_hz(fs), fs, m.terms, &mut planner);
-                    let band_power = band_powers(&residual, fs, &bands);
+                .zip(fits)
+                .enumerate()
+                .map(|(i, (st, fit))| {
+                    let sigma = quadrature_sigma_decimated(
+                        st,
+                        DECIMATION,
+                        span.len(),
+                        m.freq_hz(fs),
+                        fs,
+                        m.terms,
+                        &mut planner,
+                    );
+                    let band_power = if need_bands {
+                        band_powers(&kept[i], fs, &bands)
+                    } else {
+                        Vec::new()
+                    };
                     ChannelFit {
                         channel: i as u32 + 1,
                         amplitude: fit.fundamental(),
                         phase_rad: fit.phase(0),
                         harmonics: (1..m.terms).map(|k| fit.amplitude(k)).collect(),
                         dc: fit.dc,
-                        residual_rms: (ss / (len - m.params() as f64)).sqrt(),
+                        residual_rms: (st.sum_sq / (len - m.params() as f64)).sqrt(),
                         quadrature_sigma: sigma,
-                        peak,
-                        clipped,
+                        peak: whole[i].0,
+                        clipped: whole[i].1,
                         band_power,
-                        out_of_band_peak,
+                        out_of_band_peak: whole[i].2,
                     }
+                })
+                .collect()
+        }
+        _ => slices
+            .iter()
+            .enumerate()
+            .map(|(i, x)| {
+                let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len;
+                residual.clear();
+                residual.extend(x.iter().map(|v| f64::from(*v) - mean));
+                let ss: f64 = residual.iter().map(|r| r * r).sum();
+                let band_power = if need_bands {
+                    band_powers(&residual, fs, &bands)
+                } else {
+                    Vec::new()
+                };
+                ChannelFit {
+                    channel: i as u32 + 1,
+                    amplitude: 0.0,
+                    phase_rad: 0.0,
+                    harmonics: Vec::new(),
+                    dc: mean,
+                    residual_rms: (ss / (len - 1.0)).sqrt(),
+                    quadrature_sigma: None,
+                    peak: whole[i].0,
+                    clipped: whole[i].1,
+                    band_power,
+                    out_of_band_peak: whole[i].2,
                 }
-                _ => {
-                    let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len;
-                    residual.clear();
-                    residual.extend(x.iter().map(|v| f64::from(*v) - mean));
-                    let ss: f64 = residual.iter().map(|r| r * r).sum();
-                    let band_power = band_powers(&residual, fs, &bands);
-                    ChannelFit {
-                        channel: i as u32 + 1,
-                        amplitude: 0.0,
-                        phase_rad: 0.0,
-                        harmonics: Vec::new(),
-                        dc: mean,
-                        residual_rms: (ss / (len - 1.0)).sqrt(),
-                        quadrature_sigma: None,
-                        peak,
-                        clipped,
-                        band_power,
-                        out_of_band_peak,
-                    }
-                }
-            }
-        })
-        .collect();
+            })
+            .collect(),
+    };
     let mut spectra = Vec::new();
     let mut quality = None;
     if let (Some(d), Some(m)) = (drive, &model) {

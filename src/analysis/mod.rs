@@ -18,6 +18,10 @@ use serde::Serialize;
 use std::path::{Path, PathBuf};
 use thiserror::Error;
 
+/// Without an idle capture, band-limited floors come from the victims of
+/// this many drive captures (enough for a stable mean, cheap on large runs).
+pub const BAND_SOURCES: usize = 4;
+
 /// Settings of an analysis.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct AnalysisConfig {
@@ -238,14 +242,26 @@ pub fn analyze_run(
 ) -> Result<RunResults, AnalysisError> {
     let manifest = Manifest::load(run_dir)?;
     let nch = manifest.channels.len();
+    let has_idle = manifest.captures.iter().any(|c| c.drive.is_none());
+    let band_sources: Vec<&str> = manifest
+        .captures
+        .iter()
+        .take(BAND_SOURCES)
+        .map(|c| c.file.as_str())
+        .collect();
     let captures = manifest
         .captures
         .par_iter()
         .map(|entry| {
             let path = manifest.capture_path(run_dir, entry);
             let cap = read_capture(&path, nch, manifest.sample_rate_hz)?;
-            let res = analyze_capture(&cap, &entry.file, entry.drive, config)
-                .map_err(|message| AnalysisError::Capture { path, message });
+            // Band-limited floors come from idle captures when there are
+            // any, else from the victims of the first few drive captures.
+            let need_bands =
+                entry.drive.is_none() || (!has_idle && band_sources.contains(&entry.file.as_str()));
+            let res =
+                capture::analyze_capture_with(&cap, &entry.file, entry.drive, config, need_bands)
+                    .map_err(|message| AnalysisError::Capture { path, message });
             progress();
             res
         })
@@ -392,7 +408,13 @@ fn floors(
             let n = used.len().max(1) as f64;
             let power = used.iter().map(|f| f.residual_rms.powi(2)).sum::<f64>() / n;
             let floor = power_to_dbfs(power);
-            let band = |i: usize| used.iter().filter_map(|f| f.band_power.get(i)).sum::<f64>() / n;
+            let band = |i: usize| {
+                let with: Vec<f64> = used
+                    .iter()
+                    .filter_map(|f| f.band_power.get(i).copied())
+                    .collect();
+                with.iter().sum::<f64>() / with.len().max(1) as f64
+            };
             let usable_hz = fs / config.usable_band_ratio;
             let usable = power_to_dbfs(band(0));
             let a_weighted = config.a_weighting.then(|| power_to_dbfs(band(1)));

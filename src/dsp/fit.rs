@@ -284,6 +284,96 @@ pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut
     ss
 }
 
+/// Decimation of the mixed-down residual kept for the local-noise estimate.
+pub const DECIMATION: usize = 16;
+
+/// What the residual pass keeps of one channel.
+#[derive(Debug, Clone, Default)]
+pub struct ResidualStats {
+    /// Σ (x − model)² over the record.
+    pub sum_sq: f64,
+    /// The residual, Hann-weighted over the first `DECIMATION·baseband.len()`
+    /// samples, mixed down by `e^{−jωt}` and summed in blocks of `DECIMATION`.
+    pub baseband: Vec<(f64, f64)>,
+    /// Σ w² of that Hann window.
+    pub window_energy: f64,
+}
+
+/// One pass over every channel: the explicit residual `x − model` with the
+/// basis generated once per sample for all channels. Keeps its sum of
+/// squares and its decimated baseband (see [`ResidualStats`]); channels with
+/// `keep[c]` also get the whole residual appended to `kept[c]`.
+///
+/// # Panics
+/// When the slices differ in length from each other or from `fits`/`keep`.
+pub fn residual_pass(
+    channels: &[&[f32]],
+    fits: &[ToneFit],
+    model: &ToneModel,
+    keep: &[bool],
+    kept: &mut [Vec<f64>],
+) -> Vec<ResidualStats> {
+    assert!(
+        fits.len() == channels.len()
+            && keep.len() == channels.len()
+            && kept.len() == channels.len()
+    );
+    let len = channels.first().map_or(0, |c| c.len());
+    let blocks = len / DECIMATION;
+    let window = super::window::HANN.cached(blocks * DECIMATION);
+    let energy = super::kernels::dot(&window, &window);
+    let mut stats: Vec<ResidualStats> = channels
+        .iter()
+        .map(|_| ResidualStats {
+            sum_sq: 0.0,
+            baseband: Vec::with_capacity(blocks),
+            window_energy: energy,
+        })
+        .collect();
+    let mut basis = BasisBlock::new(model.terms);
+    let (mut wc, mut ws) = (vec![0.0; BLOCK], vec![0.0; BLOCK]);
+    let mut r = vec![0.0; BLOCK];
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for i in 0..m {
+            let w = window.get(n0 + i).copied().unwrap_or(0.0);
+            wc[i] = w * basis.cos[0][i];
+            ws[i] = w * basis.sin[0][i];
+        }
+        for (c, x) in channels.iter().enumerate() {
+            let fit = &fits[c];
+            let r = &mut r[..m];
+            widen(&x[n0..n0 + m], r);
+            for v in r.iter_mut() {
+                *v -= fit.dc;
+            }
+            for k in 0..model.terms {
+                let (a, b) = (fit.cos[k], fit.sin[k]);
+                for ((v, co), si) in r.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
+                    *v -= a * co + b * si;
+                }
+            }
+            let st = &mut stats[c];
+            st.sum_sq += dot(r, r);
+            for (j, chunk) in r.chunks(DECIMATION).enumerate() {
+                if chunk.len() == DECIMATION && st.baseband.len() < blocks {
+                    let o = j * DECIMATION;
+                    let re = dot(chunk, &wc[o..o + DECIMATION]);
+                    let im = -dot(chunk, &ws[o..o + DECIMATION]);
+                    st.baseband.push((re, im));
+                }
+            }
+            if keep[c] {
+                kept[c].extend_from_slice(r);
+            }
+        }
+        n0 += m;
+    }
+    stats
+}
+
 /// Result of a frequency estimate.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FrequencyFit {
