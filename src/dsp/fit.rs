@@ -403,11 +403,11 @@ pub fn coarse_frequency(
         return Err(no_tone);
     }
     let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len as f64;
-    let w = super::window::HANN;
+    let w = super::window::HANN.cached(len);
     let mut input: Vec<f64> = x
         .iter()
-        .enumerate()
-        .map(|(n, v)| (f64::from(*v) - mean) * w.value(n, len))
+        .zip(w.iter())
+        .map(|(v, w)| (f64::from(*v) - mean) * w)
         .collect();
     let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);
     let mut spectrum = fft.make_output_vec();

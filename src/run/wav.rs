@@ -79,7 +79,7 @@ pub fn read_capture_from<R: Read>(
         path: path.to_path_buf(),
         message,
     };
-    let mut wav =
+    let wav =
         hound::WavReader::new(reader).map_err(|e| bad(format!("not a readable WAV file: {e}")))?;
     let spec = wav.spec();
     if usize::from(spec.channels) != channels {
@@ -104,50 +104,122 @@ pub fn read_capture_from<R: Read>(
         )));
     }
     let frames = total / channels;
-    let mut out = vec![Vec::with_capacity(frames); channels];
-    let truncated = |read: usize, e: hound::Error| {
-        bad(format!(
-            "truncated or unreadable after frame {} of {frames} ({e})",
-            read / channels
-        ))
-    };
-    match (spec.sample_format, spec.bits_per_sample) {
-        (hound::SampleFormat::Float, 32) => {
-            for (i, s) in wav.samples::<f32>().enumerate() {
-                let v = s.map_err(|e| truncated(i, e))?;
-                if !v.is_finite() {
-                    return Err(bad(format!(
-                        "non-finite sample ({v}) at frame {} channel {}",
-                        i / channels,
-                        i % channels + 1
-                    )));
-                }
-                out[i % channels].push(v);
-            }
-        }
-        (hound::SampleFormat::Int, bits @ (16 | 24 | 32)) => {
-            let scale = 1.0 / f64::from(1u32 << (bits - 1));
-            for (i, s) in wav.samples::<i32>().enumerate() {
-                let v = s.map_err(|e| truncated(i, e))?;
-                out[i % channels].push((f64::from(v) * scale) as f32);
-            }
-        }
-        (fmt, bits) => {
-            return Err(bad(format!(
+    let format = match (spec.sample_format, spec.bits_per_sample) {
+        (hound::SampleFormat::Float, 32) => SampleCoding::F32,
+        (hound::SampleFormat::Int, 16) => SampleCoding::I16,
+        (hound::SampleFormat::Int, 24) => SampleCoding::I24,
+        (hound::SampleFormat::Int, 32) => SampleCoding::I32,
+        (fmt, bits) => return Err(bad(format!(
             "sample format {bits}-bit {fmt:?} is not one of 16/24/32-bit integer or 32-bit float"
-        )))
-        }
+        ))),
+    };
+    // hound has read the header and stands at the first sample: read the
+    // data in blocks and decode them straight into the channel vectors.
+    let block_align = usize::from(spec.bits_per_sample / 8) * channels;
+    if usize::from(spec.bits_per_sample / 8) * 8 != usize::from(spec.bits_per_sample) {
+        return Err(bad("sample size is not a whole number of bytes".into()));
     }
-    if out[channels - 1].len() != frames {
-        return Err(bad(format!(
-            "truncated: {} of {frames} frames present",
-            out[channels - 1].len()
-        )));
+    let mut data = wav.into_inner();
+    let mut out: Vec<Vec<f32>> = (0..channels).map(|_| Vec::with_capacity(frames)).collect();
+    let frames_per_block = (1 << 16) / block_align.max(1) + 1;
+    let mut buf = vec![0u8; frames_per_block * block_align];
+    let mut done = 0usize;
+    while done < frames {
+        let n = frames_per_block.min(frames - done);
+        let bytes = &mut buf[..n * block_align];
+        if let Err((e, got)) = read_full(&mut data, bytes) {
+            return Err(bad(format!(
+                "truncated or unreadable after frame {} of {frames} ({e})",
+                done + got / block_align
+            )));
+        }
+        format
+            .decode(bytes, channels, &mut out)
+            .map_err(|(frame, channel, v)| {
+                bad(format!(
+                    "non-finite sample ({v}) at frame {} channel {}",
+                    done + frame,
+                    channel + 1
+                ))
+            })?;
+        done += n;
     }
     Ok(Capture {
         sample_rate_hz,
         channels: out,
     })
+}
+
+/// How the samples of a WAV file are stored.
+#[derive(Debug, Clone, Copy)]
+enum SampleCoding {
+    F32,
+    I16,
+    I24,
+    I32,
+}
+
+impl SampleCoding {
+    /// Decode whole interleaved frames into the channel vectors; a
+    /// non-finite float is reported as `(frame, channel, value)`.
+    fn decode(
+        self,
+        bytes: &[u8],
+        channels: usize,
+        out: &mut [Vec<f32>],
+    ) -> Result<(), (usize, usize, f32)> {
+        let width = match self {
+            SampleCoding::I16 => 2,
+            SampleCoding::I24 => 3,
+            SampleCoding::F32 | SampleCoding::I32 => 4,
+        };
+        let frame_bytes = width * channels;
+        for c in 0..channels {
+            let dst = &mut out[c];
+            let samples = bytes
+                .chunks_exact(frame_bytes)
+                .map(|f| &f[c * width..c * width + width]);
+            match self {
+                SampleCoding::F32 => {
+                    for (i, b) in samples.enumerate() {
+                        let v = f32::from_le_bytes([b[0], b[1], b[2], b[3]]);
+                        if !v.is_finite() {
+                            return Err((i, c, v));
+                        }
+                        dst.push(v);
+                    }
+                }
+                SampleCoding::I16 => dst.extend(
+                    samples.map(|b| f32::from(i16::from_le_bytes([b[0], b[1]])) / 32_768.0),
+                ),
+                SampleCoding::I24 => dst.extend(samples.map(|b| {
+                    let v = i32::from_le_bytes([0, b[0], b[1], b[2]]) >> 8;
+                    v as f32 / 8_388_608.0
+                })),
+                SampleCoding::I32 => dst.extend(samples.map(|b| {
+                    (f64::from(i32::from_le_bytes([b[0], b[1], b[2], b[3]])) / 2_147_483_648.0)
+                        as f32
+                })),
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Fill `buf` from `r`; on a short read, the error and the bytes read.
+fn read_full<R: Read>(r: &mut R, buf: &mut [u8]) -> Result<(), (std::io::Error, usize)> {
+    let mut got = 0;
+    while got < buf.len() {
+        match r.read(&mut buf[got..]) {
+            Ok(0) => {
+                return Err((std::io::Error::from(std::io::ErrorKind::UnexpectedEof), got));
+            }
+            Ok(n) => got += n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(e) => return Err((e, got)),
+        }
+    }
+    Ok(())
 }
 
 /// Write deinterleaved channels (full scale ±1.0) to `path` in `format`.
