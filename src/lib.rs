@@ -27,6 +27,7 @@
 #![warn(missing_docs)]
 
 pub mod analysis;
+pub mod audio;
 pub mod dsp;
 pub mod model;
 pub mod run;
