@@ -4,6 +4,7 @@
 mod analyze;
 mod demo;
 mod devices;
+mod measure;
 mod progress;
 mod simulate;
 mod summary;
@@ -48,6 +49,7 @@ enum Command {
     Simulate(simulate::Args),
     Demo(demo::Args),
     Devices(devices::Args),
+    Measure(measure::Args),
 }
 
 /// Run the command line and return the process exit code.
@@ -68,6 +70,7 @@ pub fn main() -> ExitCode {
         Command::Simulate(a) => simulate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Devices(a) => devices::run(a),
+        Command::Measure(a) => measure::run(a),
     };
     match result {
         Ok(code) => ExitCode::from(code),

@@ -1,0 +1,584 @@
+//! Carrying out a plan on a rig: operator instructions or the switch
+//! command before each step, one capture per step checked at once (tone on
+//! the expected input and nowhere else, no clipping, no lost block), bounded
+//! retries, and a run folder whose `run.json` is rewritten atomically after
+//! every finished capture, so an interruption loses nothing finished and
+//! `resume` continues where it stopped.
+
+use super::{Plan, Source, Step};
+use crate::analysis::capture::analyze_capture;
+use crate::analysis::AnalysisConfig;
+use crate::audio::{AudioError, CaptureRequest, Rig};
+use crate::dsp::level::{amplitude_to_dbfs, rms_to_dbfs};
+use crate::run::{read_capture, CaptureEntry, ChannelEntry, Drive, Manifest, RunError, RUN_FORMAT};
+use serde_json::{json, Map, Value};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::sync::atomic::{AtomicBool, Ordering};
+use thiserror::Error;
+
+/// What the operator must know before any signal is driven.
+pub const CAUTIONS: &str = "\
+Before the first tone:
+  - Sensor excitation off: switch off IEPE (constant-current) supply on every input
+    that a generator or an interface output will feed.
+  - Rated range, low start: keep every input inside its rated range; septum starts each
+    tone with a fade-in and never plays above -0.5 dBFS.
+  - Ears and speakers: mute any output also patched to monitors or headphones.
+  - Mains equipment: follow your laboratory's procedures and local electrical-safety
+    codes; leave anything beyond them to licensed people.";
+
+/// Errors of a measuring session.
+#[derive(Debug, Error)]
+pub enum SessionError {
+    /// The run folder could not be read or written.
+    #[error(transparent)]
+    Run(#[from] RunError),
+    /// The audio device failed.
+    #[error(transparent)]
+    Audio(AudioError),
+    /// The rig, the run folder or the options do not fit the procedure.
+    #[error("{0}")]
+    Setup(String),
+    /// A step kept failing its checks.
+    #[error("step {step} ({file}) failed {attempts} time(s), last: {reason}; {kept} finished capture(s) kept, fix the cause and continue with --resume")]
+    StepFailed {
+        /// Step number.
+        step: usize,
+        /// Its capture file.
+        file: String,
+        /// Attempts made.
+        attempts: u32,
+        /// The last failure.
+        reason: String,
+        /// Captures finished and recorded.
+        kept: usize,
+    },
+    /// Interrupted by the operator.
+    #[error("stopped by the operator; {kept} of {total} capture(s) finished and kept, continue with --resume")]
+    Stopped {
+        /// Captures finished.
+        kept: usize,
+        /// Captures planned.
+        total: usize,
+    },
+}
+
+/// The person (or the stand-in) at the bench.
+pub trait Operator {
+    /// Show a message.
+    fn tell(&mut self, text: &str);
+    /// Show an instruction and wait until it is done; `Err(Stopped)` to stop.
+    fn confirm(&mut self, text: &str) -> Result<(), SessionError>;
+}
+
+/// How a session runs.
+#[derive(Debug, Clone)]
+pub struct Options {
+    /// The run folder.
+    pub run_dir: PathBuf,
+    /// Continue an interrupted run in `run_dir`.
+    pub resume: bool,
+    /// Shell command run before each step (unattended rigs).
+    pub switch_command: Option<String>,
+    /// Settings of the per-capture checks.
+    pub analysis: AnalysisConfig,
+    /// Silence captured before the stimulus starts, seconds.
+    pub pre_roll_s: f64,
+    /// Capture kept running after the stimulus ends, seconds.
+    pub post_roll_s: f64,
+    /// Further keys for run.json (e.g. `simulated`).
+    pub extra: Map<String, Value>,
+}
+
+/// What a session achieved.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Outcome {
+    /// Captures recorded by this session.
+    pub recorded: usize,
+    /// Captures already there (resume).
+    pub resumed: usize,
+    /// Retries made.
+    pub retries: usize,
+}
+
+/// The run folder of a session.
+struct Folder {
+    dir: PathBuf,
+    done: BTreeMap<usize, CaptureEntry>,
+    created: String,
+    extra: Map<String, Value>,
+}
+
+fn io(path: &Path, e: std::io::Error) -> SessionError {
+    SessionError::Run(RunError::Io {
+        path: path.to_path_buf(),
+        source: e,
+    })
+}
+
+fn now() -> String {
+    humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string()
+}
+
+impl Folder {
+    /// Create a new run folder, or reopen one to resume.
+    fn open(plan: &Plan, opt: &Options) -> Result<Self, SessionError> {
+        let dir = opt.run_dir.clone();
+        let stored = dir.join("procedure.toml");
+        let mut folder = Folder {
+            dir: dir.clone(),
+            done: BTreeMap::new(),
+            created: now(),
+            extra: opt.extra.clone(),
+        };
+        if !opt.resume {
+            if dir.exists() && std::fs::read_dir(&dir).map_err(|e| io(&dir, e))?.next().is_some() {
+                return Err(SessionError::Setup(format!(
+                    "{}: is not empty; measure into a new folder, or pass --resume to continue the run there",
+                    dir.display()
+                )));
+            }
+            std::fs::create_dir_all(dir.join("captures")).map_err(|e| io(&dir, e))?;
+            std::fs::write(&stored, &plan.text).map_err(|e| io(&stored, e))?;
+            return Ok(folder);
+        }
+        let text = std::fs::read_to_string(&stored).map_err(|_| {
+            SessionError::Setup(format!(
+                "{}: no procedure.toml; this is not a run septum measure started, nothing to resume",
+                dir.display()
+            ))
+        })?;
+        if text != plan.text {
+            return Err(SessionError::Setup(format!(
+                "{}: the procedure differs from the one this run started with; resume with the same file",
+                stored.display()
+            )));
+        }
+        std::fs::create_dir_all(dir.join("captures")).map_err(|e| io(&dir, e))?;
+        // Leftovers of a capture cut short are not captures.
+        for e in std::fs::read_dir(dir.join("captures")).map_err(|e| io(&dir, e))?.flatten() {
+            if e.file_name().to_string_lossy().ends_with(".part") {
+                let _ = std::fs::remove_file(e.path());
+            }
+        }
+        if dir.join("run.json").exists() {
+            let m = Manifest::load(&dir)?;
+            if let Some(Value::String(c)) = m.extra.get("created") {
+                folder.created = c.clone();
+            }
+            for entry in m.captures {
+                let step = plan.steps.iter().find(|s| s.file == entry.file);
+                if let Some(step) = step {
+                    if dir.join(&entry.file).is_file() {
+                        folder.done.insert(step.index, entry);
+                    }
+                }
+            }
+        }
+        Ok(folder)
+    }
+
+    fn manifest(&self, plan: &Plan, rig: &str) -> Manifest {
+        let p = &plan.procedure;
+        let fe = &p.front_end;
+        let mut front_end = Map::new();
+        front_end.insert("label".into(), json!(fe.label));
+        if let Some(s) = &fe.serial {
+            front_end.insert("serial".into(), json!(s));
+        }
+        if let Some(s) = &fe.notes {
+            front_end.insert("notes".into(), json!(s));
+        }
+        let mut extra = self.extra.clone();
+        extra.insert("front_end".into(), Value::Object(front_end));
+        extra.insert("created".into(), json!(self.created));
+        extra.insert("procedure".into(), json!("procedure.toml"));
+        if let Some(l) = &p.limits {
+            extra.insert("limits".into(), serde_json::to_value(l).unwrap_or(Value::Null));
+        }
+        extra.insert(
+            "measure".into(),
+            json!({
+                "rig": rig,
+                "source": match p.stimulus.source { Source::Output => "output", Source::Generator => "generator" },
+                "stimulus_output": p.stimulus.output,
+                "record_samples": plan.record_samples,
+                "steps_planned": plan.steps.len(),
+                "steps_finished": self.done.len(),
+                "complete": self.done.len() == plan.steps.len(),
+                "updated": now(),
+            }),
+        );
+        Manifest {
+            format: RUN_FORMAT.into(),
+            sample_rate_hz: fe.sample_rate_hz,
+            channels: (1..=fe.inputs)
+                .map(|n| ChannelEntry {
+                    number: n,
+                    name: Some(plan.input_name(n)),
+                    termination: Some(plan.termination(n)),
+                    extra: Map::new(),
+                })
+                .collect(),
+            captures: self.done.values().cloned().collect(),
+            extra,
+        }
+    }
+
+    /// Write run.json through a temporary file and a rename.
+    fn save(&self, plan: &Plan, rig: &str) -> Result<(), SessionError> {
+        let m = self.manifest(plan, rig);
+        let tmp = self.dir.join("run.json.tmp");
+        let text = serde_json::to_string_pretty(&m).expect("manifest serialises") + "\n";
+        {
+            use std::io::Write;
+            let mut f = std::fs::File::create(&tmp).map_err(|e| io(&tmp, e))?;
+            f.write_all(text.as_bytes()).map_err(|e| io(&tmp, e))?;
+            f.sync_all().map_err(|e| io(&tmp, e))?;
+        }
+        let dst = self.dir.join("run.json");
+        std::fs::rename(&tmp, &dst).map_err(|e| io(&dst, e))
+    }
+}
+
+/// Check that the rig fits the procedure, before any sound.
+fn check_rig(plan: &Plan, rig: &dyn Rig) -> Result<(), SessionError> {
+    let fe = &plan.procedure.front_end;
+    let st = &plan.procedure.stimulus;
+    if rig.sample_rate() != fe.sample_rate_hz {
+        return Err(SessionError::Setup(format!(
+            "the rig runs at {} Hz, the procedure's front_end.sample_rate_hz is {}",
+            rig.sample_rate(),
+            fe.sample_rate_hz
+        )));
+    }
+    if rig.inputs() != fe.inputs as usize {
+        return Err(SessionError::Setup(format!(
+            "the rig captures {} inputs, the procedure's front_end.inputs is {}",
+            rig.inputs(),
+            fe.inputs
+        )));
+    }
+    if st.source == Source::Output && rig.outputs() < st.output as usize {
+        return Err(SessionError::Setup(format!(
+            "the procedure plays on output {}, the rig has {} output(s)",
+            st.output,
+            rig.outputs()
+        )));
+    }
+    Ok(())
+}
+
+/// What the operator must do before `step`.
+fn instruction(plan: &Plan, step: &Step) -> String {
+    let p = &plan.procedure;
+    let n = plan.steps.len();
+    let victims = |agg: Option<u32>| -> String {
+        let mut by_term: BTreeMap<String, Vec<String>> = BTreeMap::new();
+        for i in (1..=p.front_end.inputs).filter(|i| Some(*i) != agg) {
+            by_term.entry(plan.termination(i)).or_default().push(i.to_string());
+        }
+        by_term
+            .iter()
+            .map(|(t, ins)| format!("input(s) {}: {t}", ins.join(", ")))
+            .collect::<Vec<_>>()
+            .join("; ")
+    };
+    match step.drive {
+        Some((a, f)) => {
+            let source = match p.stimulus.source {
+                Source::Output => format!("Connect output {} to input {a} ({})", p.stimulus.output, plan.input_name(a)),
+                Source::Generator => format!(
+                    "Set the generator to {f:.3} Hz at {:.1} dBFS at the input and connect it to input {a} ({})",
+                    p.stimulus.level_dbfs,
+                    plan.input_name(a)
+                ),
+            };
+            format!(
+                "Step {} of {n}: {source}.\n  Terminate every other input ({}); IEPE supply off on input {a}.",
+                step.index,
+                victims(Some(a))
+            )
+        }
+        None => format!(
+            "Step {} of {n}: idle capture. Disconnect the stimulus and terminate every input ({}).",
+            step.index,
+            victims(None)
+        ),
+    }
+}
+
+fn run_switch(cmd: &str, plan: &Plan, step: &Step, dir: &Path) -> Result<(), String> {
+    let (agg, f) = step.drive.map_or((0, 0.0), |(a, f)| (a, f));
+    let st = &plan.procedure.stimulus;
+    let status = Command::new("sh")
+        .arg("-c")
+        .arg(cmd)
+        .env("SEPTUM_STEP", step.index.to_string())
+        .env("SEPTUM_STEPS", plan.steps.len().to_string())
+        .env("SEPTUM_AGGRESSOR", agg.to_string())
+        .env("SEPTUM_FREQUENCY_HZ", format!("{f}"))
+        .env("SEPTUM_LEVEL_DBFS", format!("{}", st.level_dbfs))
+        .env("SEPTUM_OUTPUT", st.output.to_string())
+        .env("SEPTUM_CAPTURE", &step.file)
+        .env("SEPTUM_RUN_DIR", dir)
+        .stdin(std::process::Stdio::null())
+        .status()
+        .map_err(|e| format!("switch command could not start: {e}"))?;
+    if status.success() {
+        Ok(())
+    } else {
+        Err(format!("switch command exited with {status}"))
+    }
+}
+
+/// Check a finished capture; returns extra keys for run.json.
+fn check(
+    plan: &Plan,
+    step: &Step,
+    path: &Path,
+    clipped: &[usize],
+    config: &AnalysisConfig,
+) -> Result<Map<String, Value>, String> {
+    let fe = &plan.procedure.front_end;
+    if let Some((i, n)) = clipped.iter().enumerate().find(|(_, n)| **n > 0) {
+        return Err(format!(
+            "input {} clipped ({n} samples at or beyond full scale); lower the level or the input gain",
+            i + 1
+        ));
+    }
+    let cap = read_capture(path, fe.inputs as usize, fe.sample_rate_hz).map_err(|e| e.to_string())?;
+    let level: Vec<f64> = cap
+        .channels
+        .iter()
+        .map(|x| {
+            let m = x.iter().map(|v| f64::from(*v)).sum::<f64>() / x.len() as f64;
+            let ms = x.iter().map(|v| (f64::from(*v) - m).powi(2)).sum::<f64>() / x.len() as f64;
+            rms_to_dbfs(ms.sqrt())
+        })
+        .collect();
+    let mut order: Vec<usize> = (0..level.len()).collect();
+    order.sort_by(|a, b| level[*b].total_cmp(&level[*a]));
+    let nominal = plan.procedure.stimulus.level_dbfs;
+    let mut extra = Map::new();
+    let Some((agg, f)) = step.drive else {
+        let loud = order[0];
+        if level[loud] > nominal - 40.0 {
+            return Err(format!(
+                "a signal of {:.1} dBFS is on input {} during the idle capture; disconnect the stimulus and terminate every input",
+                level[loud],
+                loud + 1
+            ));
+        }
+        return Ok(extra);
+    };
+    let loud = order[0];
+    if level[loud] < nominal - 20.0 {
+        return Err(format!(
+            "no tone on any input (loudest: input {} at {:.1} dBFS, {:.1} dBFS expected on input {agg}); check the patch and that the source is not muted",
+            loud + 1,
+            level[loud],
+            nominal
+        ));
+    }
+    if loud + 1 != agg as usize {
+        return Err(format!(
+            "wrong patch: the tone is on input {} ({:.1} dBFS), not on input {agg} ({:.1} dBFS)",
+            loud + 1,
+            level[loud],
+            level[agg as usize - 1]
+        ));
+    }
+    if let Some(&second) = order.get(1) {
+        if level[second] > level[loud] - 30.0 {
+            return Err(format!(
+                "the tone is on input {} and on input {} ({:.1} dB apart); only the aggressor may be driven",
+                loud + 1,
+                second + 1,
+                level[loud] - level[second]
+            ));
+        }
+    }
+    let drive = Drive {
+        channel: agg,
+        frequency_hz: f,
+        level_dbfs: nominal,
+    };
+    let a = analyze_capture(&cap, &step.file, Some(drive), config)?;
+    let fit = &a.channels[agg as usize - 1];
+    let got = amplitude_to_dbfs(fit.amplitude);
+    if got < nominal - 10.0 {
+        return Err(format!(
+            "the tone on input {agg} is {got:.1} dBFS, more than 10 dB below the nominal {nominal:.1} dBFS"
+        ));
+    }
+    let x = &cap.channels[agg as usize - 1];
+    let onset = x
+        .iter()
+        .position(|v| f64::from(v.abs()) >= 0.5 * fit.amplitude)
+        .unwrap_or(0);
+    extra.insert("onset_frame".into(), json!(onset));
+    extra.insert("steady_frames".into(), json!(a.span_frames));
+    if let Some(t) = a.tone_hz {
+        extra.insert("tone_hz".into(), json!(t));
+    }
+    extra.insert("aggressor_dbfs".into(), json!(got));
+    Ok(extra)
+}
+
+/// Carry out `plan` on `rig`. Stops on `cancel`.
+pub fn run(
+    plan: &Plan,
+    rig: &mut dyn Rig,
+    operator: &mut dyn Operator,
+    opt: &Options,
+    cancel: &AtomicBool,
+) -> Result<Outcome, SessionError> {
+    check_rig(plan, rig)?;
+    let mut folder = Folder::open(plan, opt)?;
+    let fs = plan.procedure.front_end.sample_rate_hz;
+    let p = &plan.procedure;
+    let pre = (opt.pre_roll_s * f64::from(fs)).round() as usize;
+    let post = (opt.post_roll_s * f64::from(fs)).round() as usize;
+    let resumed = folder.done.len();
+    let total = plan.steps.len();
+    let desc = rig.describe();
+    operator.tell(&format!("rig: {desc}"));
+    if resumed > 0 {
+        operator.tell(&format!("resuming: {resumed} of {total} capture(s) already finished"));
+    }
+    let todo: Vec<&Step> = plan.steps.iter().filter(|s| !folder.done.contains_key(&s.index)).collect();
+    let secs: f64 = todo
+        .iter()
+        .map(|s| match s.drive {
+            Some(_) => super::seconds((pre + plan.stimulus_frames() + post) as u64, fs),
+            None => super::seconds(p.idle.record_samples, fs),
+        })
+        .sum();
+    operator.tell(&format!(
+        "{} capture(s) to make: about {secs:.0} s of recording at real time, plus patching",
+        todo.len()
+    ));
+    if todo.iter().any(|s| s.drive.is_some()) {
+        operator.tell(CAUTIONS);
+    }
+    let mut last_patch: Option<Option<u32>> = None;
+    let mut retries = 0;
+    let mut recorded = 0;
+    let out_idx = p.stimulus.output as usize - 1;
+    for step in todo {
+        let mut attempt = 0u32;
+        let mut reason: Option<String> = None;
+        loop {
+            if cancel.load(Ordering::Relaxed) {
+                return Err(SessionError::Stopped { kept: folder.done.len(), total });
+            }
+            attempt += 1;
+            // Set up the step: the rig itself, the switch command, or a person.
+            let patch = step.drive.map(|(a, _)| a);
+            let input = patch.map(|a| a as usize - 1);
+            let self_set = match (p.stimulus.source, step.drive) {
+                (Source::Generator, Some((_, f))) => rig.self_generator(input, f, p.stimulus.level_dbfs),
+                (Source::Generator, None) => rig.self_generator(None, 0.0, -200.0),
+                (Source::Output, _) => rig.self_patch(out_idx, input),
+            };
+            let text = instruction(plan, step);
+            if self_set {
+                if last_patch != Some(patch) {
+                    operator.tell(&format!("{text}\n  (the simulated rig patches itself)"));
+                }
+            } else if let Some(cmd) = &opt.switch_command {
+                operator.tell(&text);
+                run_switch(cmd, plan, step, &folder.dir).map_err(SessionError::Setup)?;
+            } else if reason.is_some()
+                || last_patch != Some(patch)
+                || p.stimulus.source == Source::Generator
+            {
+                let kept = folder.done.len();
+                operator.confirm(&text).map_err(|e| match e {
+                    SessionError::Stopped { .. } => SessionError::Stopped { kept, total },
+                    e => e,
+                })?;
+            }
+            last_patch = Some(patch);
+            let stim = match (p.stimulus.source, step.drive) {
+                (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
+                _ => None,
+            };
+            let frames = match step.drive {
+                Some(_) => pre + plan.stimulus_frames() + post,
+                None => p.idle.record_samples as usize,
+            };
+            let part = folder.dir.join(format!("{}.part", step.file));
+            let req = CaptureRequest {
+                stimulus: stim.as_deref(),
+                output: out_idx,
+                pre_roll: pre,
+                frames,
+                wav: part.clone(),
+                format: p.front_end.wav,
+                clip_level: opt.analysis.clip_level as f32,
+            };
+            let result = match rig.capture(&req, cancel) {
+                Ok(report) => check(plan, step, &part, &report.clipped, &opt.analysis),
+                Err(AudioError::Interrupted) => {
+                    let _ = std::fs::remove_file(&part);
+                    return Err(SessionError::Stopped { kept: folder.done.len(), total });
+                }
+                Err(AudioError::Lost(m)) => Err(format!("capture lost data: {m}")),
+                Err(e) => {
+                    let _ = std::fs::remove_file(&part);
+                    return Err(SessionError::Audio(e));
+                }
+            };
+            match result {
+                Ok(mut extra) => {
+                    let dst = folder.dir.join(&step.file);
+                    std::fs::rename(&part, &dst).map_err(|e| io(&dst, e))?;
+                    extra.insert("attempts".into(), json!(attempt));
+                    extra.insert("recorded".into(), json!(now()));
+                    folder.done.insert(
+                        step.index,
+                        CaptureEntry {
+                            file: step.file.clone(),
+                            drive: step.drive.map(|(a, f)| Drive {
+                                channel: a,
+                                frequency_hz: f,
+                                level_dbfs: p.stimulus.level_dbfs,
+                            }),
+                            extra,
+                        },
+                    );
+                    folder.save(plan, &desc)?;
+                    recorded += 1;
+                    operator.tell(&format!("  captured {} ({}/{total})", step.file, folder.done.len()));
+                    break;
+                }
+                Err(why) => {
+                    let _ = std::fs::remove_file(&part);
+                    operator.tell(&format!("  step {} attempt {attempt} failed: {why}", step.index));
+                    if attempt > p.test.retries {
+                        return Err(SessionError::StepFailed {
+                            step: step.index,
+                            file: step.file.clone(),
+                            attempts: attempt,
+                            reason: why,
+                            kept: folder.done.len(),
+                        });
+                    }
+                    retries += 1;
+                    reason = Some(why);
+                }
+            }
+        }
+    }
+    rig.self_patch(out_idx, None);
+    folder.save(plan, &desc)?;
+    Ok(Outcome {
+        recorded,
+        resumed,
+        retries,
+    })
+}
