@@ -30,4 +30,5 @@ pub mod analysis;
 pub mod audio;
 pub mod dsp;
 pub mod model;
+pub mod procedure;
 pub mod run;

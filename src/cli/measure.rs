@@ -58,7 +58,7 @@ pub struct Args {
     #[arg(long, num_args = 0..=1, require_equals = true, default_missing_value = "")]
     pub simulated: Option<String>,
     /// Simulated front end: clock speed relative to real time.
-    #[arg(long, default_value_t = 8.0, hide = true)]
+    #[arg(long, default_value_t = 32.0, hide = true)]
     pub sim_speed: f64,
     /// Simulated front end: patch input B when asked for input A (A:B).
     #[arg(long, hide = true)]

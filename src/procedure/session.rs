@@ -6,7 +6,8 @@
 //! `resume` continues where it stopped.
 
 use super::{Plan, Source, Step};
-use crate::analysis::capture::analyze_capture;
+use crate::analysis::steady::steady_range;
+use crate::dsp::fit::{estimate_frequency, fit_tones};
 use crate::analysis::AnalysisConfig;
 use crate::audio::{AudioError, CaptureRequest, Rig};
 use crate::dsp::level::{amplitude_to_dbfs, rms_to_dbfs};
@@ -401,29 +402,26 @@ fn check(
             ));
         }
     }
-    let drive = Drive {
-        channel: agg,
-        frequency_hz: f,
-        level_dbfs: nominal,
-    };
-    let a = analyze_capture(&cap, &step.file, Some(drive), config)?;
-    let fit = &a.channels[agg as usize - 1];
-    let got = amplitude_to_dbfs(fit.amplitude);
+    let x = &cap.channels[agg as usize - 1];
+    let fs = f64::from(fe.sample_rate_hz);
+    let span = steady_range(x, fs, f).map_err(|e| format!("input {agg} at {f} Hz: {e}"))?;
+    let est = estimate_frequency(&x[span.clone()], fs, f, config.frequency_search, config.max_harmonic)
+        .map_err(|e| format!("input {agg}: {e}"))?;
+    let fit = fit_tones(&[&x[span.clone()]], &est.model).map_err(|e| format!("input {agg}: {e}"))?;
+    let amplitude = fit[0].fundamental();
+    let got = amplitude_to_dbfs(amplitude);
     if got < nominal - 10.0 {
         return Err(format!(
             "the tone on input {agg} is {got:.1} dBFS, more than 10 dB below the nominal {nominal:.1} dBFS"
         ));
     }
-    let x = &cap.channels[agg as usize - 1];
     let onset = x
         .iter()
-        .position(|v| f64::from(v.abs()) >= 0.5 * fit.amplitude)
+        .position(|v| f64::from(v.abs()) >= 0.5 * amplitude)
         .unwrap_or(0);
     extra.insert("onset_frame".into(), json!(onset));
-    extra.insert("steady_frames".into(), json!(a.span_frames));
-    if let Some(t) = a.tone_hz {
-        extra.insert("tone_hz".into(), json!(t));
-    }
+    extra.insert("steady_frames".into(), json!(span.len()));
+    extra.insert("tone_hz".into(), json!(est.freq_hz));
     extra.insert("aggressor_dbfs".into(), json!(got));
     Ok(extra)
 }
