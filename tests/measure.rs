@@ -78,6 +78,8 @@ fn wrong_patch_is_caught_and_named() {
     assert!(err.contains("wrong patch: the tone is on input 4"), "{err}");
     assert!(err.contains("not on input 3"), "{err}");
     assert!(err.contains("failed 2 time(s)"), "{err}");
+    // Caught by the quiet check, before the full-level tone.
+    assert!(err.contains("quiet check at -21.0 dBFS"), "{err}");
     // What finished before is kept in a valid run.
     assert_eq!(capture_files(&w.path("run")).len(), 2);
     septum::run::Manifest::load(&w.path("run")).unwrap();
@@ -95,7 +97,7 @@ fn a_lost_block_voids_the_capture_and_it_is_redone() {
     ]);
     let out = w.ok(&[
         "measure", "--procedure", &p, "--out", "run", "--simulated", "--yes",
-        "--sim-xrun-in-capture", "2",
+        "--sim-xrun-in-capture", "4",
     ]);
     assert!(out.contains("step 2 attempt 1 failed: capture lost data: 1 xrun(s)"), "{out}");
     let m = manifest(&w.path("run"));

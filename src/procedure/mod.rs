@@ -14,6 +14,9 @@ use serde::Deserialize;
 use std::path::Path;
 use thiserror::Error;
 
+/// How far below the set level the quiet check after each patch plays, dB.
+pub const QUIET_CHECK_DB: f64 = 20.0;
+
 /// Highest stimulus level accepted, dBFS.
 pub const MAX_LEVEL_DBFS: f64 = -0.5;
 
@@ -501,18 +504,18 @@ impl Plan {
         let ramp = (st.ramp_s * fs).round() as usize;
         let total = self.stimulus_frames();
         let amp = 10f64.powf(st.level_dbfs / 20.0);
-        let w = 2.0 * std::f64::consts::PI * freq_hz / fs;
-        (0..total)
-            .map(|n| {
-                let k = n.min(total - 1 - n);
-                let env = if k < ramp {
-                    0.5 * (1.0 - (std::f64::consts::PI * k as f64 / ramp as f64).cos())
-                } else {
-                    1.0
-                };
-                (amp * env * (w * n as f64).sin()) as f32
-            })
-            .collect()
+        tone(total, ramp, amp, 2.0 * std::f64::consts::PI * freq_hz / fs)
+    }
+
+    /// The short, quiet tone played after each patch before the full level:
+    /// fades and 0.25 s of tone, [`QUIET_CHECK_DB`] below the set level.
+    pub fn quiet_stimulus(&self, freq_hz: f64) -> Vec<f32> {
+        let fs = f64::from(self.procedure.front_end.sample_rate_hz);
+        let st = &self.procedure.stimulus;
+        let ramp = (st.ramp_s * fs).round() as usize;
+        let total = 2 * ramp + (0.25 * fs) as usize;
+        let amp = 10f64.powf((st.level_dbfs - QUIET_CHECK_DB) / 20.0);
+        tone(total, ramp, amp, 2.0 * std::f64::consts::PI * freq_hz / fs)
     }
 
     /// Seconds the whole plan records (without prompts and retries).
@@ -526,6 +529,22 @@ impl Plan {
             })
             .sum()
     }
+}
+
+/// `total` samples of a sine of peak `amp` and `w` rad/sample, faded in and
+/// out over `ramp` samples with raised-cosine ramps.
+fn tone(total: usize, ramp: usize, amp: f64, w: f64) -> Vec<f32> {
+    (0..total)
+        .map(|n| {
+            let k = n.min(total - 1 - n);
+            let env = if k < ramp {
+                0.5 * (1.0 - (std::f64::consts::PI * k as f64 / ramp as f64).cos())
+            } else {
+                1.0
+            };
+            (amp * env * (w * n as f64).sin()) as f32
+        })
+        .collect()
 }
 
 /// A frequency as written in file names: up to three decimals.

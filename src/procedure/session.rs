@@ -342,6 +342,7 @@ fn check(
     path: &Path,
     clipped: &[usize],
     config: &AnalysisConfig,
+    nominal: f64,
 ) -> Result<Map<String, Value>, String> {
     let fe = &plan.procedure.front_end;
     if let Some((i, n)) = clipped.iter().enumerate().find(|(_, n)| **n > 0) {
@@ -362,7 +363,6 @@ fn check(
         .collect();
     let mut order: Vec<usize> = (0..level.len()).collect();
     order.sort_by(|a, b| level[*b].total_cmp(&level[*a]));
-    let nominal = plan.procedure.stimulus.level_dbfs;
     let mut extra = Map::new();
     let Some((agg, f)) = step.drive else {
         let loud = order[0];
@@ -424,6 +424,53 @@ fn check(
     extra.insert("tone_hz".into(), json!(est.freq_hz));
     extra.insert("aggressor_dbfs".into(), json!(got));
     Ok(extra)
+}
+
+/// Turn an interruption into `Stopped` with the right counts.
+fn stop(e: SessionError, kept: usize, total: usize) -> SessionError {
+    match e {
+        SessionError::Stopped { .. } => SessionError::Stopped { kept, total },
+        e => e,
+    }
+}
+
+/// Make one capture into `part` and check it. The outer error stops the
+/// session (interrupt, device failure); the inner one is a failed attempt.
+#[allow(clippy::too_many_arguments)]
+fn capture_and_check(
+    plan: &Plan,
+    rig: &mut dyn Rig,
+    step: &Step,
+    part: &Path,
+    stimulus: Option<&[f32]>,
+    frames: usize,
+    nominal: f64,
+    opt: &Options,
+    cancel: &AtomicBool,
+) -> Result<Result<Map<String, Value>, String>, SessionError> {
+    let p = &plan.procedure;
+    let pre = (opt.pre_roll_s * f64::from(p.front_end.sample_rate_hz)).round() as usize;
+    let req = CaptureRequest {
+        stimulus,
+        output: p.stimulus.output as usize - 1,
+        pre_roll: pre,
+        frames,
+        wav: part.to_path_buf(),
+        format: p.front_end.wav,
+        clip_level: opt.analysis.clip_level as f32,
+    };
+    match rig.capture(&req, cancel) {
+        Ok(report) => Ok(check(plan, step, part, &report.clipped, &opt.analysis, nominal)),
+        Err(AudioError::Interrupted) => {
+            let _ = std::fs::remove_file(part);
+            Err(SessionError::Stopped { kept: 0, total: 0 })
+        }
+        Err(AudioError::Lost(m)) => Ok(Err(format!("capture lost data: {m}"))),
+        Err(e) => {
+            let _ = std::fs::remove_file(part);
+            Err(SessionError::Audio(e))
+        }
+    }
 }
 
 /// Carry out `plan` on `rig`. Stops on `cancel`.
@@ -500,37 +547,37 @@ pub fn run(
                     e => e,
                 })?;
             }
+            let repatched = last_patch != Some(patch) || reason.is_some();
             last_patch = Some(patch);
-            let stim = match (p.stimulus.source, step.drive) {
-                (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
-                _ => None,
-            };
-            let frames = match step.drive {
-                Some(_) => pre + plan.stimulus_frames() + post,
-                None => p.idle.record_samples as usize,
-            };
             let part = folder.dir.join(format!("{}.part", step.file));
-            let req = CaptureRequest {
-                stimulus: stim.as_deref(),
-                output: out_idx,
-                pre_roll: pre,
-                frames,
-                wav: part.clone(),
-                format: p.front_end.wav,
-                clip_level: opt.analysis.clip_level as f32,
-            };
-            let result = match rig.capture(&req, cancel) {
-                Ok(report) => check(plan, step, &part, &report.clipped, &opt.analysis),
-                Err(AudioError::Interrupted) => {
-                    let _ = std::fs::remove_file(&part);
-                    return Err(SessionError::Stopped { kept: folder.done.len(), total });
+            let level = p.stimulus.level_dbfs;
+            let mut result = Ok(Map::new());
+            // Start quiet: after every (re)patch, a short tone well below the
+            // set level must reach the expected input, and only that one.
+            if let (Source::Output, Some((a, f)), true) = (p.stimulus.source, step.drive, repatched) {
+                let quiet = level - super::QUIET_CHECK_DB;
+                let probe = plan.quiet_stimulus(f);
+                let frames = pre + probe.len() + post;
+                result = capture_and_check(plan, rig, step, &part, Some(&probe), frames, quiet, opt, cancel)
+                    .map_err(|e| stop(e, folder.done.len(), total))?
+                    .map_err(|why| format!("quiet check at {quiet:.1} dBFS: {why}"));
+                let _ = std::fs::remove_file(&part);
+                if result.is_ok() {
+                    operator.tell(&format!("  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"));
                 }
-                Err(AudioError::Lost(m)) => Err(format!("capture lost data: {m}")),
-                Err(e) => {
-                    let _ = std::fs::remove_file(&part);
-                    return Err(SessionError::Audio(e));
-                }
-            };
+            }
+            if result.is_ok() {
+                let stim = match (p.stimulus.source, step.drive) {
+                    (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
+                    _ => None,
+                };
+                let frames = match step.drive {
+                    Some(_) => pre + plan.stimulus_frames() + post,
+                    None => p.idle.record_samples as usize,
+                };
+                result = capture_and_check(plan, rig, step, &part, stim.as_deref(), frames, level, opt, cancel)
+                    .map_err(|e| stop(e, folder.done.len(), total))?;
+            }
             match result {
                 Ok(mut extra) => {
                     let dst = folder.dir.join(&step.file);
