@@ -351,6 +351,7 @@ pub struct SimRig {
     bench: Arc<Bench>,
     faults: SimFaults,
     captures: u64,
+    gen_ppm: f64,
 }
 
 impl SimRig {
@@ -382,6 +383,7 @@ impl SimRig {
             bench,
             faults,
             captures: 0,
+            gen_ppm: r.model.stimulus.generator_offset_ppm,
         })
     }
 
@@ -430,7 +432,10 @@ impl Rig for SimRig {
         self.bench.output.store(NONE, Ordering::Relaxed);
         self.bench
             .gen_hz
-            .store(if input.is_some() { freq_hz } else { 0.0 }.to_bits(), Ordering::Relaxed);
+            .store(
+                if input.is_some() { freq_hz * (1.0 + self.gen_ppm * 1e-6) } else { 0.0 }.to_bits(),
+                Ordering::Relaxed,
+            );
         self.bench
             .gen_amp
             .store(10f64.powf(level_dbfs / 20.0).to_bits(), Ordering::Relaxed);

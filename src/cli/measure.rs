@@ -142,7 +142,10 @@ pub fn sim_model(plan: &Plan, spec: &str) -> Result<(Resolved, String)> {
     m.stimulus.level_dbfs = plan.procedure.stimulus.level_dbfs;
     m.stimulus.record_samples = plan.record_samples;
     m.stimulus.idle_samples = plan.procedure.idle.record_samples;
-    m.stimulus.generator_offset_ppm = 0.0;
+    if plan.procedure.stimulus.source == septum::procedure::Source::Output {
+        // The interface's own output shares the converter's clock.
+        m.stimulus.generator_offset_ppm = 0.0;
+    }
     Ok((m.resolve(), text))
 }
 
