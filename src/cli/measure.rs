@@ -66,7 +66,7 @@ pub struct Args {
     /// Simulated front end: report an xrun during capture number N.
     #[arg(long, hide = true)]
     pub sim_xrun_in_capture: Option<u64>,
-    /// Print only instructions and errors.
+    /// Print only the cautions, the instructions the operator must act on, and errors.
     #[arg(long, short)]
     pub quiet: bool,
 }
@@ -93,7 +93,9 @@ struct Console {
 
 impl Operator for Console {
     fn tell(&mut self, text: &str) {
-        if !self.quiet || text.starts_with("Step") || text.starts_with("Before") {
+        // Quiet runs keep the cautions; instructions that need the operator
+        // come through `confirm`, which always prints.
+        if !self.quiet || text.starts_with("Before") {
             println!("{text}");
         }
     }
