@@ -159,8 +159,11 @@ impl SimDevice {
             let now = Instant::now();
             if next > now {
                 std::thread::sleep(next - now);
-            } else if now - next > Duration::from_millis(200) {
-                next = now; // paused or starved: do not burst to catch up
+            } else if now - next > Duration::from_secs(2) {
+                // Starved for long: give up on the lost time (the frames
+                // check of the capture will notice). Shorter delays are
+                // caught up in a burst, as a device with deep buffers would.
+                next = now;
             }
             let mut e = self.eng.lock().expect("engine lock");
             if e.out.is_none() && e.inp.is_none() {

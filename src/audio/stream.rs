@@ -78,13 +78,15 @@ fn error_callback(stats: Arc<Stats>) -> impl FnMut(cpal::Error) + Send + 'static
 }
 
 impl CpalRig {
-    /// Build both streams (paused), with a capture ring of four seconds
-    /// of device time, touched once before streaming so the callback never
-    /// faults a page in.
+    /// Build both streams (paused), with a capture ring touched once
+    /// before streaming so the callback never faults a page in.
     pub fn open(cfg: RigConfig) -> Result<Self, AudioError> {
         let stats = Arc::new(Stats::default());
         let ch = cfg.inputs as usize;
-        let cap = ((4.0 * cfg.speed.max(1.0)) as usize * cfg.sample_rate as usize * ch).max(1 << 16);
+        // Four seconds of device time, or half a second of wall time when
+        // the (simulated) device clock runs faster than real time.
+        let seconds = (0.5 * cfg.speed).max(4.0);
+        let cap = ((seconds * f64::from(cfg.sample_rate)) as usize * ch).max(1 << 16);
         let (mut prod, mut ring) = rtrb::RingBuffer::<f32>::new(cap);
         // Pre-fault the ring: write and read it once in full.
         prod.write_chunk_uninit(cap)
@@ -290,7 +292,9 @@ impl CpalRig {
         let end = self.counters();
         let received = end[0] - start[0];
         let expected = elapsed * f64::from(self.rate) * self.speed;
-        if (received as f64) < 0.9 * expected - 0.1 * f64::from(self.rate) * self.speed {
+        // Gross losses only (a stalled device): single lost blocks show up as
+        // xruns or ring overflows above. Allow 10 % and a quarter second.
+        if (received as f64) < 0.9 * expected - 0.25 * f64::from(self.rate) * self.speed {
             return Err(AudioError::Lost(format!(
                 "received {received} frames in {elapsed:.2} s where the clock implies about {expected:.0}"
             )));

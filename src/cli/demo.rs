@@ -62,7 +62,7 @@ pub fn run(args: Args) -> Result<u8> {
         yes: true,
         resume: false,
         simulated: Some(String::new()),
-        sim_speed: 64.0,
+        sim_speed: 32.0,
         sim_miswire: None,
         sim_xrun_in_capture: None,
         quiet: true,
