@@ -36,7 +36,7 @@ pub fn open_rig(
     let in_dev = JackDevice::default_input_device(prefix, false, false).map_err(no_server)?;
     let out_dev = JackDevice::default_output_device(prefix, false, false).map_err(no_server)?;
     let connector = Connector::new(prefix)?;
-    let server_rate = connector.client.sample_rate() as u32;
+    let server_rate = connector.client.sample_rate();
     if server_rate != sample_rate {
         return Err(AudioError::Device(format!(
             "the JACK server runs at {server_rate} Hz, the procedure asks for {sample_rate} Hz"

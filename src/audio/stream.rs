@@ -5,7 +5,7 @@ use super::{AudioError, CaptureReport, CaptureRequest, Rig};
 use crate::run::WavFormat;
 use cpal::traits::{DeviceTrait, StreamTrait};
 use std::io::BufWriter;
-use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
@@ -214,21 +214,17 @@ impl CpalRig {
     }
 
     fn counters(&self) -> [u64; 5] {
-        let s = &self.stats;
-        [
-            s.frames_in.load(Ordering::Relaxed),
-            s.overflows.load(Ordering::Relaxed),
-            s.xruns.load(Ordering::Relaxed),
-            s.fatal.load(Ordering::Relaxed),
-            s.stimuli_done.load(Ordering::Relaxed),
-        ]
+        counters(&self.stats)
     }
 
+    /// Stream the capture: a writer thread drains the ring into the WAV
+    /// file while this thread hands the stimulus to the output after the
+    /// pre-roll and watches for lost blocks, device errors and interrupts.
     fn stream_to_wav(
         &mut self,
         req: &CaptureRequest,
         cancel: &AtomicBool,
-        writer: &mut WavSink,
+        sink: &mut WavSink,
     ) -> Result<(), AudioError> {
         let ch = self.inputs;
         let start = self.counters();
@@ -236,64 +232,71 @@ impl CpalRig {
         let budget = Duration::from_secs_f64(
             2.0 + 3.0 * req.frames as f64 / f64::from(self.rate) / self.speed,
         );
-        let mut consumed = 0usize;
-        let mut sent = req.stimulus.is_none();
-        while consumed < req.frames {
-            if cancel.load(Ordering::Relaxed) {
-                return Err(AudioError::Interrupted);
-            }
-            let now = self.counters();
-            if now[3] > start[3] {
-                return Err(AudioError::Device("the device reported an error and stopped".into()));
-            }
-            if now[1] > start[1] {
-                return Err(AudioError::Lost(format!(
-                    "{} block(s) did not fit the capture ring",
-                    now[1] - start[1]
-                )));
-            }
-            if now[2] > start[2] {
-                return Err(AudioError::Lost(format!(
-                    "{} xrun(s) reported by the audio host",
-                    now[2] - start[2]
-                )));
-            }
-            let want = (req.frames - consumed) * ch;
-            let take = (self.ring.slots().min(want) / ch) * ch;
-            if take == 0 {
+        let consumed = AtomicUsize::new(0);
+        let stop = AtomicBool::new(false);
+        let (ring, cmd, stats) = (&mut self.ring, &mut self.cmd, &self.stats);
+        let frames = req.frames;
+        std::thread::scope(|scope| {
+            let writer = scope.spawn(|| -> Result<(), AudioError> {
+                let mut done = 0usize;
+                while done < frames && !stop.load(Ordering::Relaxed) {
+                    let take = (ring.slots().min((frames - done) * ch) / ch) * ch;
+                    if take == 0 {
+                        std::thread::sleep(Duration::from_micros(500));
+                        continue;
+                    }
+                    let chunk = ring.read_chunk(take).expect("slots were counted");
+                    let (a, b) = chunk.as_slices();
+                    sink.write(a, b)?;
+                    chunk.commit_all();
+                    done += take / ch;
+                    consumed.store(done, Ordering::Relaxed);
+                }
+                Ok(())
+            });
+            let mut sent = req.stimulus.is_none();
+            let watch = loop {
+                let now = counters(stats);
+                if let Err(e) = lost(&start, &now) {
+                    break Err(e);
+                }
+                if writer.is_finished() {
+                    break Ok(());
+                }
+                if cancel.load(Ordering::Relaxed) {
+                    break Err(AudioError::Interrupted);
+                }
+                let got = consumed.load(Ordering::Relaxed);
                 if t0.elapsed() > budget {
-                    return Err(AudioError::Lost(format!(
-                        "the device delivered {consumed} of {} frames in {:.1} s",
-                        req.frames,
+                    break Err(AudioError::Lost(format!(
+                        "the device delivered {got} of {frames} frames in {:.1} s",
                         t0.elapsed().as_secs_f64()
                     )));
                 }
-                std::thread::sleep(Duration::from_micros(500));
-                continue;
-            }
-            let chunk = self.ring.read_chunk(take).expect("slots were counted");
-            let (a, b) = chunk.as_slices();
-            writer.write(a, b)?;
-            chunk.commit_all();
-            consumed += take / ch;
-            if !sent && consumed >= req.pre_roll {
-                let st = Box::new(Stimulus {
-                    samples: req.stimulus.unwrap_or_default().to_vec(),
-                    channel: req.output,
-                    pos: 0,
-                });
-                if self.cmd.push(st).is_err() {
-                    return Err(AudioError::Device("the output did not take the stimulus".into()));
+                if !sent && got >= req.pre_roll {
+                    let st = Box::new(Stimulus {
+                        samples: req.stimulus.unwrap_or_default().to_vec(),
+                        channel: req.output,
+                        pos: 0,
+                    });
+                    if cmd.push(st).is_err() {
+                        break Err(AudioError::Device("the output did not take the stimulus".into()));
+                    }
+                    sent = true;
                 }
-                sent = true;
-            }
-        }
+                std::thread::sleep(Duration::from_millis(1));
+            };
+            stop.store(true, Ordering::Relaxed);
+            let written = writer.join().expect("the writer thread does not panic");
+            watch.and(written)
+        })?;
         let elapsed = t0.elapsed().as_secs_f64();
         let end = self.counters();
+        lost(&start, &end)?;
         let received = end[0] - start[0];
         let expected = elapsed * f64::from(self.rate) * self.speed;
         // Gross losses only (a stalled device): single lost blocks show up as
-        // xruns or ring overflows above. Allow 10 % and a quarter second.
+        // xruns or ring overflows. Allow 10 % and a quarter second.
         if (received as f64) < 0.9 * expected - 0.25 * f64::from(self.rate) * self.speed {
             return Err(AudioError::Lost(format!(
                 "received {received} frames in {elapsed:.2} s where the clock implies about {expected:.0}"
@@ -306,6 +309,38 @@ impl CpalRig {
         }
         Ok(())
     }
+}
+
+fn counters(s: &Stats) -> [u64; 5] {
+    [
+        s.frames_in.load(Ordering::Relaxed),
+        s.overflows.load(Ordering::Relaxed),
+        s.xruns.load(Ordering::Relaxed),
+        s.fatal.load(Ordering::Relaxed),
+        s.stimuli_done.load(Ordering::Relaxed),
+    ]
+}
+
+/// Compare counters taken before and during a capture.
+fn lost(start: &[u64; 5], now: &[u64; 5]) -> Result<(), AudioError> {
+    if now[3] > start[3] {
+        return Err(AudioError::Device(
+            "the device reported an error and stopped".into(),
+        ));
+    }
+    if now[1] > start[1] {
+        return Err(AudioError::Lost(format!(
+            "{} block(s) did not fit the capture ring",
+            now[1] - start[1]
+        )));
+    }
+    if now[2] > start[2] {
+        return Err(AudioError::Lost(format!(
+            "{} xrun(s) reported by the audio host",
+            now[2] - start[2]
+        )));
+    }
+    Ok(())
 }
 
 /// The WAV file being written, with peak and clipping tallies.
