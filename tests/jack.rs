@@ -127,9 +127,21 @@ record_samples = 16384
         "--jack-input-ports", &inputs.join(","),
         "--switch-command", &format!("echo $SEPTUM_AGGRESSOR > {}", file.display()),
     ]);
+    // A relay that drives input 5 when input 4 is asked for: caught and named.
+    let miswired = w.septum(&[
+        "measure", "--procedure", "loop.toml", "--out", "run-miswired", "--host", "jack",
+        "--jack-output-ports", &format!("{name}:in"),
+        "--jack-input-ports", &inputs.join(","),
+        "--switch-command",
+        &format!("a=$SEPTUM_AGGRESSOR; [ $a = 4 ] && a=5; echo $a > {}", file.display()),
+    ]);
     stop.store(true, Ordering::Relaxed);
     watcher.join().unwrap();
     drop(active);
+    let stderr = String::from_utf8_lossy(&miswired.stderr);
+    assert_eq!(miswired.status.code(), Some(1), "{stderr}");
+    assert!(stderr.contains("wrong patch: the tone is on input 5"), "{stderr}");
+    assert!(stderr.contains("not on input 4"), "{stderr}");
     let stdout = String::from_utf8_lossy(&out.stdout);
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(out.status.success(), "septum measure failed: {stderr}\n{stdout}");
