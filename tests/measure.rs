@@ -276,3 +276,27 @@ fn external_generator_mode() {
     assert!(a.strong > 20 && a.strong_max_err <= 0.05 && a.max_z <= 4.5, "{a:?}");
     assert!(a.floor_max_err <= 0.5, "{a:?}");
 }
+
+/// The device disappears in the middle of a capture: one line of error,
+/// every finished capture kept in a valid run, and --resume completes it.
+#[test]
+fn device_failure_keeps_the_run_and_resumes() {
+    let w = Workdir::new();
+    let p = procedure(&w, "p.toml", &[
+        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0]"),
+        ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 2, 3]"),
+        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
+        ("record_samples = 65536     # one", "record_samples = 8192     # one"),
+    ]);
+    // Captures: quiet check 1, step 1, quiet check 2, step 2, quiet check 3 …
+    let err = w.fails(&[
+        "measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q",
+        "--sim-fail-in-capture", "4",
+    ]);
+    assert!(err.contains("the device reported an error and stopped"), "{err}");
+    assert_eq!(capture_files(&w.path("run")).len(), 1);
+    septum::run::Manifest::load(&w.path("run")).unwrap();
+    w.ok(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q", "--resume"]);
+    assert_eq!(capture_files(&w.path("run")).len(), 4);
+    assert_eq!(manifest(&w.path("run"))["measure"]["complete"], true);
+}

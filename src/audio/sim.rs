@@ -35,6 +35,8 @@ pub struct SimFaults {
     pub miswire: Option<(usize, usize)>,
     /// Report one xrun during the capture with this number (from 1).
     pub xrun_in_capture: Option<u64>,
+    /// Fail as a device that disappeared, during the capture with this number.
+    pub fail_in_capture: Option<u64>,
 }
 
 /// What the simulated bench is wired to; shared with the clock thread.
@@ -49,6 +51,8 @@ struct Bench {
     gen_amp: AtomicU64,
     /// Pending xrun reports.
     xruns: AtomicU64,
+    /// Set: report the device gone.
+    gone: AtomicBool,
 }
 
 #[derive(Default)]
@@ -205,6 +209,9 @@ impl SimDevice {
                 if b.xruns.load(Ordering::Relaxed) > 0 {
                     b.xruns.fetch_sub(1, Ordering::Relaxed);
                     err(ErrorKind::Xrun.into());
+                }
+                if b.gone.swap(false, Ordering::Relaxed) {
+                    err(Error::with_message(ErrorKind::DeviceNotAvailable, "simulated front end unplugged"));
                 }
                 // SAFETY: `rx` holds `n` f32 samples and outlives the call.
                 let d = unsafe { Data::from_parts(rx.as_mut_ptr().cast(), n, SampleFormat::F32) };
@@ -420,6 +427,9 @@ impl Rig for SimRig {
         self.captures += 1;
         if self.faults.xrun_in_capture == Some(self.captures) {
             self.bench.xruns.store(1, Ordering::Relaxed);
+        }
+        if self.faults.fail_in_capture == Some(self.captures) {
+            self.bench.gone.store(true, Ordering::Relaxed);
         }
         let r = self.rig.capture(req, cancel);
         self.bench.xruns.store(0, Ordering::Relaxed);

@@ -65,6 +65,7 @@ pub fn run(args: Args) -> Result<u8> {
         sim_speed: 32.0,
         sim_miswire: None,
         sim_xrun_in_capture: None,
+        sim_fail_in_capture: None,
         quiet: true,
     };
     measure::measure(&args, &plan)?;

@@ -66,6 +66,9 @@ pub struct Args {
     /// Simulated front end: report an xrun during capture number N.
     #[arg(long, hide = true)]
     pub sim_xrun_in_capture: Option<u64>,
+    /// Simulated front end: fail as an unplugged device during capture number N.
+    #[arg(long, hide = true)]
+    pub sim_fail_in_capture: Option<u64>,
     /// Print only the cautions, the instructions the operator must act on, and errors.
     #[arg(long, short)]
     pub quiet: bool,
@@ -251,6 +254,7 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
             let faults = SimFaults {
                 miswire: args.sim_miswire.as_deref().map(parse_pair).transpose()?,
                 xrun_in_capture: args.sim_xrun_in_capture,
+                fail_in_capture: args.sim_fail_in_capture,
             };
             let rig = SimRig::open(&r, args.sim_speed, faults, r.model.seed)?;
             extra.insert(
