@@ -109,7 +109,7 @@ wav = "float32"
 termination = "short"
 [test]
 aggressors = [1, 4, 8]
-retries = 3
+retries = 6
 [stimulus]
 output = 1
 level_dbfs = -6.0
