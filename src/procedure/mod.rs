@@ -17,6 +17,10 @@ use thiserror::Error;
 /// How far below the set level the quiet check after each patch plays, dB.
 pub const QUIET_CHECK_DB: f64 = 20.0;
 
+/// Test frequencies when a procedure names none: octave-spaced values of
+/// the third-octave preferred series, kept up to fs/2.56 and nudged.
+pub const DEFAULT_PREFERRED_HZ: [f64; 8] = [125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0, 16000.0];
+
 /// Highest stimulus level accepted, dBFS.
 pub const MAX_LEVEL_DBFS: f64 = -0.5;
 
@@ -413,10 +417,17 @@ impl Plan {
             return bad("stimulus", "preferred_hz", "give frequencies_hz or preferred_hz, not both".into());
         }
         let key = if st.frequencies_hz.is_empty() { "preferred_hz" } else { "frequencies_hz" };
-        let given = if st.frequencies_hz.is_empty() { &st.preferred_hz } else { &st.frequencies_hz };
-        if given.is_empty() {
-            return bad("stimulus", "preferred_hz", "missing: list test frequencies in preferred_hz or frequencies_hz".into());
-        }
+        // Default: octave-spaced preferred frequencies within the usable band fs/2.56.
+        let defaults: Vec<f64> = DEFAULT_PREFERRED_HZ
+            .iter()
+            .copied()
+            .filter(|f| *f <= fs / 2.56)
+            .collect();
+        let given = match (st.frequencies_hz.is_empty(), st.preferred_hz.is_empty()) {
+            (false, _) => &st.frequencies_hz,
+            (true, false) => &st.preferred_hz,
+            (true, true) => &defaults,
+        };
         let mut freqs = Vec::new();
         for f in given {
             if !(*f >= 10.0 && *f <= 0.45 * fs) {
