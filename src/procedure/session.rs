@@ -473,6 +473,175 @@ fn capture_and_check(
     }
 }
 
+/// A session under way: the plan, the rig, the person, the run folder.
+struct Session<'a> {
+    plan: &'a Plan,
+    rig: &'a mut dyn Rig,
+    operator: &'a mut dyn Operator,
+    opt: &'a Options,
+    cancel: &'a AtomicBool,
+    folder: Folder,
+    desc: String,
+    pre: usize,
+    post: usize,
+    last_patch: Option<Option<u32>>,
+}
+
+impl Session<'_> {
+    fn total(&self) -> usize {
+        self.plan.steps.len()
+    }
+
+    /// An interruption with the right counts; other errors as they are.
+    fn stopped(&self, e: SessionError) -> SessionError {
+        stop(e, self.folder.done.len(), self.total())
+    }
+
+    /// Set up `step`: the rig itself, the switch command, or a person.
+    /// Returns whether the patch changed (or is being redone).
+    fn set_up(&mut self, step: &Step, retry: bool) -> Result<bool, SessionError> {
+        let p = &self.plan.procedure;
+        let patch = step.drive.map(|(a, _)| a);
+        let input = patch.map(|a| a as usize - 1);
+        let out_idx = p.stimulus.output as usize - 1;
+        let self_set = match (p.stimulus.source, step.drive) {
+            (Source::Generator, Some((_, f))) => self.rig.self_generator(input, f, p.stimulus.level_dbfs),
+            (Source::Generator, None) => self.rig.self_generator(None, 0.0, -200.0),
+            (Source::Output, _) => self.rig.self_patch(out_idx, input),
+        };
+        let changed = self.last_patch != Some(patch);
+        let text = instruction(self.plan, step);
+        if self_set {
+            if changed {
+                self.operator.tell(&format!("{text}\n  (the simulated rig patches itself)"));
+            }
+        } else if let Some(cmd) = &self.opt.switch_command {
+            self.operator.tell(&text);
+            run_switch(cmd, self.plan, step, &self.folder.dir).map_err(SessionError::Setup)?;
+        } else if retry || changed || p.stimulus.source == Source::Generator {
+            let r = self.operator.confirm(&text);
+            r.map_err(|e| self.stopped(e))?;
+        }
+        self.last_patch = Some(patch);
+        Ok(changed || retry)
+    }
+
+    /// Record `step` into its part file and check it; after a (re)patch,
+    /// a quiet check comes first. The inner error is a failed attempt.
+    fn record(&mut self, step: &Step, repatched: bool) -> Result<Result<Map<String, Value>, String>, SessionError> {
+        let (plan, opt) = (self.plan, self.opt);
+        let p = &plan.procedure;
+        let part = self.folder.dir.join(format!("{}.part", step.file));
+        let level = p.stimulus.level_dbfs;
+        // Start quiet: after every (re)patch, a short tone well below the
+        // set level must reach the expected input, and only that one.
+        if let (Source::Output, Some((a, f)), true) = (p.stimulus.source, step.drive, repatched) {
+            let quiet = level - super::QUIET_CHECK_DB;
+            let probe = plan.quiet_stimulus(f);
+            let frames = self.pre + probe.len() + self.post;
+            let r = capture_and_check(plan, self.rig, step, &part, Some(&probe), frames, quiet, opt, self.cancel);
+            let _ = std::fs::remove_file(&part);
+            if let Err(why) = r.map_err(|e| self.stopped(e))? {
+                return Ok(Err(format!("quiet check at {quiet:.1} dBFS: {why}")));
+            }
+            self.operator.tell(&format!("  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"));
+        }
+        let stim = match (p.stimulus.source, step.drive) {
+            (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
+            _ => None,
+        };
+        let frames = match step.drive {
+            Some(_) => self.pre + plan.stimulus_frames() + self.post,
+            None => p.idle.record_samples as usize,
+        };
+        let r = capture_and_check(plan, self.rig, step, &part, stim.as_deref(), frames, level, opt, self.cancel);
+        let r = r.map_err(|e| self.stopped(e))?;
+        if r.is_err() {
+            let _ = std::fs::remove_file(&part);
+        }
+        Ok(r)
+    }
+
+    /// Move a checked capture into place and list it in run.json.
+    fn keep(&mut self, step: &Step, attempt: u32, mut extra: Map<String, Value>) -> Result<(), SessionError> {
+        let part = self.folder.dir.join(format!("{}.part", step.file));
+        let dst = self.folder.dir.join(&step.file);
+        std::fs::rename(&part, &dst).map_err(|e| io(&dst, e))?;
+        extra.insert("attempts".into(), json!(attempt));
+        extra.insert("recorded".into(), json!(now()));
+        let level_dbfs = self.plan.procedure.stimulus.level_dbfs;
+        let entry = CaptureEntry {
+            file: step.file.clone(),
+            drive: step.drive.map(|(a, f)| Drive {
+                channel: a,
+                frequency_hz: f,
+                level_dbfs,
+            }),
+            extra,
+        };
+        self.folder.done.insert(step.index, entry);
+        self.folder.save(self.plan, &self.desc)?;
+        let (n, total) = (self.folder.done.len(), self.total());
+        self.operator.tell(&format!("  captured {} ({n}/{total})", step.file));
+        Ok(())
+    }
+
+    /// Carry out one step with bounded retries; returns the retries made.
+    fn step(&mut self, step: &Step) -> Result<u32, SessionError> {
+        let retries = self.plan.procedure.test.retries;
+        let mut attempt = 0u32;
+        loop {
+            if self.cancel.load(Ordering::Relaxed) {
+                return Err(self.stopped(SessionError::Stopped { kept: 0, total: 0 }));
+            }
+            attempt += 1;
+            let repatched = self.set_up(step, attempt > 1)?;
+            match self.record(step, repatched)? {
+                Ok(extra) => {
+                    self.keep(step, attempt, extra)?;
+                    return Ok(attempt - 1);
+                }
+                Err(why) => {
+                    self.operator.tell(&format!("  step {} attempt {attempt} failed: {why}", step.index));
+                    if attempt > retries {
+                        return Err(SessionError::StepFailed {
+                            step: step.index,
+                            file: step.file.clone(),
+                            attempts: attempt,
+                            reason: why,
+                            kept: self.folder.done.len(),
+                        });
+                    }
+                }
+            }
+        }
+    }
+
+    /// Say what is about to happen; the cautions before any tone.
+    fn announce(&mut self, todo: &[&Step]) {
+        let fs = self.plan.procedure.front_end.sample_rate_hz;
+        let (resumed, total) = (self.folder.done.len(), self.total());
+        self.operator.tell(&format!("rig: {}", self.desc));
+        if resumed > 0 {
+            self.operator.tell(&format!("resuming: {resumed} of {total} capture(s) already finished"));
+        }
+        let secs: f64 = todo
+            .iter()
+            .map(|s| match s.drive {
+                Some(_) => super::seconds((self.pre + self.plan.stimulus_frames() + self.post) as u64, fs),
+                None => super::seconds(self.plan.procedure.idle.record_samples, fs),
+            })
+            .sum();
+        self.operator.tell(&format!(
+            "{} capture(s) to make: about {secs:.0} s of recording at real time, plus patching",
+            todo.len()
+        ));
+        if todo.iter().any(|s| s.drive.is_some()) {
+            self.operator.tell(CAUTIONS);
+        }
+    }
+}
+
 /// Carry out `plan` on `rig`. Stops on `cancel`.
 pub fn run(
     plan: &Plan,
@@ -482,147 +651,36 @@ pub fn run(
     cancel: &AtomicBool,
 ) -> Result<Outcome, SessionError> {
     check_rig(plan, rig)?;
-    let mut folder = Folder::open(plan, opt)?;
-    let fs = plan.procedure.front_end.sample_rate_hz;
-    let p = &plan.procedure;
-    let pre = (opt.pre_roll_s * f64::from(fs)).round() as usize;
-    let post = (opt.post_roll_s * f64::from(fs)).round() as usize;
-    let resumed = folder.done.len();
-    let total = plan.steps.len();
+    let folder = Folder::open(plan, opt)?;
+    let fs = f64::from(plan.procedure.front_end.sample_rate_hz);
     let desc = rig.describe();
-    operator.tell(&format!("rig: {desc}"));
-    if resumed > 0 {
-        operator.tell(&format!("resuming: {resumed} of {total} capture(s) already finished"));
-    }
-    let todo: Vec<&Step> = plan.steps.iter().filter(|s| !folder.done.contains_key(&s.index)).collect();
-    let secs: f64 = todo
+    let mut s = Session {
+        plan,
+        rig,
+        operator,
+        opt,
+        cancel,
+        folder,
+        desc,
+        pre: (opt.pre_roll_s * fs).round() as usize,
+        post: (opt.post_roll_s * fs).round() as usize,
+        last_patch: None,
+    };
+    let resumed = s.folder.done.len();
+    let todo: Vec<&Step> = plan
+        .steps
         .iter()
-        .map(|s| match s.drive {
-            Some(_) => super::seconds((pre + plan.stimulus_frames() + post) as u64, fs),
-            None => super::seconds(p.idle.record_samples, fs),
-        })
-        .sum();
-    operator.tell(&format!(
-        "{} capture(s) to make: about {secs:.0} s of recording at real time, plus patching",
-        todo.len()
-    ));
-    if todo.iter().any(|s| s.drive.is_some()) {
-        operator.tell(CAUTIONS);
-    }
-    let mut last_patch: Option<Option<u32>> = None;
+        .filter(|st| !s.folder.done.contains_key(&st.index))
+        .collect();
+    s.announce(&todo);
     let mut retries = 0;
-    let mut recorded = 0;
-    let out_idx = p.stimulus.output as usize - 1;
-    for step in todo {
-        let mut attempt = 0u32;
-        let mut reason: Option<String> = None;
-        loop {
-            if cancel.load(Ordering::Relaxed) {
-                return Err(SessionError::Stopped { kept: folder.done.len(), total });
-            }
-            attempt += 1;
-            // Set up the step: the rig itself, the switch command, or a person.
-            let patch = step.drive.map(|(a, _)| a);
-            let input = patch.map(|a| a as usize - 1);
-            let self_set = match (p.stimulus.source, step.drive) {
-                (Source::Generator, Some((_, f))) => rig.self_generator(input, f, p.stimulus.level_dbfs),
-                (Source::Generator, None) => rig.self_generator(None, 0.0, -200.0),
-                (Source::Output, _) => rig.self_patch(out_idx, input),
-            };
-            let text = instruction(plan, step);
-            if self_set {
-                if last_patch != Some(patch) {
-                    operator.tell(&format!("{text}\n  (the simulated rig patches itself)"));
-                }
-            } else if let Some(cmd) = &opt.switch_command {
-                operator.tell(&text);
-                run_switch(cmd, plan, step, &folder.dir).map_err(SessionError::Setup)?;
-            } else if reason.is_some()
-                || last_patch != Some(patch)
-                || p.stimulus.source == Source::Generator
-            {
-                let kept = folder.done.len();
-                operator.confirm(&text).map_err(|e| match e {
-                    SessionError::Stopped { .. } => SessionError::Stopped { kept, total },
-                    e => e,
-                })?;
-            }
-            let repatched = last_patch != Some(patch) || reason.is_some();
-            last_patch = Some(patch);
-            let part = folder.dir.join(format!("{}.part", step.file));
-            let level = p.stimulus.level_dbfs;
-            let mut result = Ok(Map::new());
-            // Start quiet: after every (re)patch, a short tone well below the
-            // set level must reach the expected input, and only that one.
-            if let (Source::Output, Some((a, f)), true) = (p.stimulus.source, step.drive, repatched) {
-                let quiet = level - super::QUIET_CHECK_DB;
-                let probe = plan.quiet_stimulus(f);
-                let frames = pre + probe.len() + post;
-                result = capture_and_check(plan, rig, step, &part, Some(&probe), frames, quiet, opt, cancel)
-                    .map_err(|e| stop(e, folder.done.len(), total))?
-                    .map_err(|why| format!("quiet check at {quiet:.1} dBFS: {why}"));
-                let _ = std::fs::remove_file(&part);
-                if result.is_ok() {
-                    operator.tell(&format!("  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"));
-                }
-            }
-            if result.is_ok() {
-                let stim = match (p.stimulus.source, step.drive) {
-                    (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
-                    _ => None,
-                };
-                let frames = match step.drive {
-                    Some(_) => pre + plan.stimulus_frames() + post,
-                    None => p.idle.record_samples as usize,
-                };
-                result = capture_and_check(plan, rig, step, &part, stim.as_deref(), frames, level, opt, cancel)
-                    .map_err(|e| stop(e, folder.done.len(), total))?;
-            }
-            match result {
-                Ok(mut extra) => {
-                    let dst = folder.dir.join(&step.file);
-                    std::fs::rename(&part, &dst).map_err(|e| io(&dst, e))?;
-                    extra.insert("attempts".into(), json!(attempt));
-                    extra.insert("recorded".into(), json!(now()));
-                    folder.done.insert(
-                        step.index,
-                        CaptureEntry {
-                            file: step.file.clone(),
-                            drive: step.drive.map(|(a, f)| Drive {
-                                channel: a,
-                                frequency_hz: f,
-                                level_dbfs: p.stimulus.level_dbfs,
-                            }),
-                            extra,
-                        },
-                    );
-                    folder.save(plan, &desc)?;
-                    recorded += 1;
-                    operator.tell(&format!("  captured {} ({}/{total})", step.file, folder.done.len()));
-                    break;
-                }
-                Err(why) => {
-                    let _ = std::fs::remove_file(&part);
-                    operator.tell(&format!("  step {} attempt {attempt} failed: {why}", step.index));
-                    if attempt > p.test.retries {
-                        return Err(SessionError::StepFailed {
-                            step: step.index,
-                            file: step.file.clone(),
-                            attempts: attempt,
-                            reason: why,
-                            kept: folder.done.len(),
-                        });
-                    }
-                    retries += 1;
-                    reason = Some(why);
-                }
-            }
-        }
+    for step in &todo {
+        retries += s.step(step)? as usize;
     }
-    rig.self_patch(out_idx, None);
-    folder.save(plan, &desc)?;
+    s.rig.self_patch(plan.procedure.stimulus.output as usize - 1, None);
+    s.folder.save(plan, &s.desc)?;
     Ok(Outcome {
-        recorded,
+        recorded: todo.len(),
         resumed,
         retries,
     })
