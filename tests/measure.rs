@@ -300,3 +300,51 @@ fn device_failure_keeps_the_run_and_resumes() {
     assert_eq!(capture_files(&w.path("run")).len(), 4);
     assert_eq!(manifest(&w.path("run"))["measure"]["complete"], true);
 }
+
+/// Run `septum args` on a pseudo-terminal (util-linux `script`) with `keys`
+/// typed in; `None` when `script` is not installed.
+fn on_terminal(w: &Workdir, args: &str, keys: &str) -> Option<(i32, String)> {
+    if Command::new("script").arg("--version").output().is_err() {
+        eprintln!("SKIPPED: util-linux `script` is not installed; the guided-mode test needs a terminal");
+        return None;
+    }
+    let cmd = format!("{} {args}", env!("CARGO_BIN_EXE_septum"));
+    let mut child = Command::new("script")
+        .args(["-qec", &cmd, "/dev/null"])
+        .current_dir(w.dir.path())
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child.stdin.take().unwrap().write_all(keys.as_bytes()).unwrap();
+    let out = child.wait_with_output().unwrap();
+    let text = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(!text.contains("panicked"), "{text}");
+    Some((out.status.code().unwrap_or(-1), text))
+}
+
+/// Guided mode: one wait per patch, Enter goes on, q stops with the run kept.
+#[test]
+fn guided_mode_waits_for_the_operator() {
+    let w = Workdir::new();
+    let p = procedure(&w, "p.toml", &[
+        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0, 4000.0]"),
+        ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 2]"),
+        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
+        ("record_samples = 65536     # one", "record_samples = 8192     # one"),
+    ]);
+    let args = format!("measure --procedure {p} --out run --simulated --sim-ask -q");
+    let Some((code, text)) = on_terminal(&w, &args, "\n\n\n") else { return };
+    assert_eq!(code, 0, "{text}");
+    // Two aggressors and the idle capture: three patches, three waits.
+    assert_eq!(text.matches("Press Enter when done").count(), 3, "{text}");
+    assert!(text.find("Before the first tone") < text.find("Press Enter"), "{text}");
+    assert_eq!(capture_files(&w.path("run")).len(), 5);
+    let args = format!("measure --procedure {p} --out run2 --simulated --sim-ask -q");
+    let (code, text) = on_terminal(&w, &args, "\nq\n").unwrap();
+    assert_eq!(code, 1, "{text}");
+    assert!(text.contains("stopped by the operator; 2 of 5 capture(s) finished and kept"), "{text}");
+    assert_eq!(capture_files(&w.path("run2")).len(), 2);
+}

@@ -37,6 +37,9 @@ pub struct SimFaults {
     pub xrun_in_capture: Option<u64>,
     /// Fail as a device that disappeared, during the capture with this number.
     pub fail_in_capture: Option<u64>,
+    /// Let the operator confirm each patch (the bench still follows the
+    /// instruction), to try the guided workflow without hardware.
+    pub ask_operator: bool,
 }
 
 /// What the simulated bench is wired to; shared with the clock thread.
@@ -439,7 +442,7 @@ impl Rig for SimRig {
         self.bench.gen_hz.store(0f64.to_bits(), Ordering::Relaxed);
         self.bench.output.store(output, Ordering::Relaxed);
         self.route(input);
-        true
+        !self.faults.ask_operator
     }
     fn self_generator(&mut self, input: Option<usize>, freq_hz: f64, level_dbfs: f64) -> bool {
         self.bench.output.store(NONE, Ordering::Relaxed);
@@ -453,6 +456,6 @@ impl Rig for SimRig {
             .gen_amp
             .store(10f64.powf(level_dbfs / 20.0).to_bits(), Ordering::Relaxed);
         self.route(input);
-        true
+        !self.faults.ask_operator
     }
 }

@@ -66,6 +66,7 @@ pub fn run(args: Args) -> Result<u8> {
         sim_miswire: None,
         sim_xrun_in_capture: None,
         sim_fail_in_capture: None,
+        sim_ask: false,
         quiet: true,
     };
     measure::measure(&args, &plan)?;

@@ -69,6 +69,9 @@ pub struct Args {
     /// Simulated front end: fail as an unplugged device during capture number N.
     #[arg(long, hide = true)]
     pub sim_fail_in_capture: Option<u64>,
+    /// Simulated front end: ask the operator to confirm each patch.
+    #[arg(long, hide = true)]
+    pub sim_ask: bool,
     /// Print only the cautions, the instructions the operator must act on, and errors.
     #[arg(long, short)]
     pub quiet: bool,
@@ -219,7 +222,8 @@ fn open_real(args: &Args, plan: &Plan) -> Result<Box<dyn Rig>> {
 pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
     let interactive = std::io::stdin().is_terminal();
     let sim = args.simulated.clone();
-    if sim.is_none() && args.switch_command.is_none() && !args.yes && !interactive {
+    let self_patching = sim.is_some() && !args.sim_ask;
+    if !self_patching && args.switch_command.is_none() && !args.yes && !interactive {
         bail!("the input is not a terminal, so septum cannot wait for the operator; pass --yes when the wiring is fixed, or --switch-command for a switched rig");
     }
     if args.sim_speed <= 0.0 || args.sim_speed > 1000.0 {
@@ -255,6 +259,7 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
                 miswire: args.sim_miswire.as_deref().map(parse_pair).transpose()?,
                 xrun_in_capture: args.sim_xrun_in_capture,
                 fail_in_capture: args.sim_fail_in_capture,
+                ask_operator: args.sim_ask,
             };
             let rig = SimRig::open(&r, args.sim_speed, faults, r.model.seed)?;
             extra.insert(
