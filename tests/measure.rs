@@ -244,6 +244,11 @@ fn bad_procedures_are_refused_before_anything_happens() {
     assert_eq!(out.status.code(), Some(1), "{stderr}");
     assert!(stderr.contains("not a terminal"), "{stderr}");
     assert!(!w.path("run").exists());
+    // JACK ports must be named, one per input, before any client is opened.
+    let err = w.fails(&["measure", "--procedure", &p, "--out", "run", "--host", "jack", "--yes",
+        "--jack-input-ports", "a:1,a:2"]);
+    assert!(err.contains("--jack-input-ports names 2 port(s) for the procedure's 8 inputs"), "{err}");
+    assert!(!w.path("run").exists());
 }
 
 #[test]

@@ -176,8 +176,15 @@ fn open_real(args: &Args, plan: &Plan) -> Result<Box<dyn Rig>> {
             stimulus_to: args.jack_output_ports.clone(),
             inputs_from: args.jack_input_ports.clone(),
         };
-        if ports.inputs_from.len() > fe.inputs as usize {
-            bail!("--jack-input-ports names {} ports for {} inputs", ports.inputs_from.len(), fe.inputs);
+        if ports.inputs_from.len() != fe.inputs as usize {
+            bail!(
+                "--jack-input-ports names {} port(s) for the procedure's {} inputs; list one source port per input, in order (see `septum devices`)",
+                ports.inputs_from.len(),
+                fe.inputs
+            );
+        }
+        if st.source == septum::procedure::Source::Output && ports.stimulus_to.is_empty() {
+            bail!("--jack-output-ports is missing: name the port(s) the stimulus output feeds (see `septum devices`)");
         }
         let prefix = format!("septum{}", std::process::id());
         let (rig, _conn) = open_rig(&prefix, fe.inputs as u16, st.output as usize - 1, fe.sample_rate_hz, &ports)?;
