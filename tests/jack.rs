@@ -50,7 +50,10 @@ impl jack::ProcessHandler for Loop {
             let out = port.as_mut_slice(ps);
             for (o, s) in out.iter_mut().zip(x) {
                 // A small white floor (about -125 dBFS) from a fixed LCG.
-                self.noise = self.noise.wrapping_mul(1_664_525).wrapping_add(1_013_904_223);
+                self.noise = self
+                    .noise
+                    .wrapping_mul(1_664_525)
+                    .wrapping_add(1_013_904_223);
                 let n = (self.noise >> 8) as f32 / (1u32 << 24) as f32 - 0.5;
                 let g = if t < N { self.gain[t][v] } else { 0.0 };
                 *o = g * s + 2e-6 * n;
@@ -70,19 +73,38 @@ fn jack_measure_recovers_a_known_matrix() {
     let name = client.name().to_string();
     let input = client.register_port("in", AudioIn::default()).unwrap();
     let outs: Vec<_> = (1..=N)
-        .map(|i| client.register_port(&format!("out_{i}"), AudioOut::default()).unwrap())
+        .map(|i| {
+            client
+                .register_port(&format!("out_{i}"), AudioOut::default())
+                .unwrap()
+        })
         .collect();
     let rate = client.sample_rate();
     let gain: Vec<Vec<f32>> = (0..N)
         .map(|a| {
             (0..N)
-                .map(|v| if a == v { 1.0 } else { 10f64.powf(coupling_db(a, v) / 20.0) as f32 })
+                .map(|v| {
+                    if a == v {
+                        1.0
+                    } else {
+                        10f64.powf(coupling_db(a, v) / 20.0) as f32
+                    }
+                })
                 .collect()
         })
         .collect();
     let target = Arc::new(AtomicUsize::new(usize::MAX));
     let active = client
-        .activate_async((), Loop { input, outs, target: target.clone(), gain, noise: 1 })
+        .activate_async(
+            (),
+            Loop {
+                input,
+                outs,
+                target: target.clone(),
+                gain,
+                noise: 1,
+            },
+        )
         .unwrap();
     // The switch command writes the aggressor into a file this thread watches.
     let file = w.path("target");
@@ -122,30 +144,59 @@ record_samples = 16384
     std::fs::write(w.path("loop.toml"), procedure).unwrap();
     let inputs: Vec<String> = (1..=N).map(|i| format!("{name}:out_{i}")).collect();
     let out = w.septum(&[
-        "measure", "--procedure", "loop.toml", "--out", "run", "--host", "jack",
-        "--jack-output-ports", &format!("{name}:in"),
-        "--jack-input-ports", &inputs.join(","),
-        "--switch-command", &format!("echo $SEPTUM_AGGRESSOR > {}", file.display()),
+        "measure",
+        "--procedure",
+        "loop.toml",
+        "--out",
+        "run",
+        "--host",
+        "jack",
+        "--jack-output-ports",
+        &format!("{name}:in"),
+        "--jack-input-ports",
+        &inputs.join(","),
+        "--switch-command",
+        &format!("echo $SEPTUM_AGGRESSOR > {}", file.display()),
     ]);
     // A relay that drives input 5 when input 4 is asked for: caught and named.
     let miswired = w.septum(&[
-        "measure", "--procedure", "loop.toml", "--out", "run-miswired", "--host", "jack",
-        "--jack-output-ports", &format!("{name}:in"),
-        "--jack-input-ports", &inputs.join(","),
+        "measure",
+        "--procedure",
+        "loop.toml",
+        "--out",
+        "run-miswired",
+        "--host",
+        "jack",
+        "--jack-output-ports",
+        &format!("{name}:in"),
+        "--jack-input-ports",
+        &inputs.join(","),
         "--switch-command",
-        &format!("a=$SEPTUM_AGGRESSOR; [ $a = 4 ] && a=5; echo $a > {}", file.display()),
+        &format!(
+            "a=$SEPTUM_AGGRESSOR; [ $a = 4 ] && a=5; echo $a > {}",
+            file.display()
+        ),
     ]);
     stop.store(true, Ordering::Relaxed);
     watcher.join().unwrap();
     drop(active);
     let stderr = String::from_utf8_lossy(&miswired.stderr);
     assert_eq!(miswired.status.code(), Some(1), "{stderr}");
-    assert!(stderr.contains("wrong patch: the tone is on input 5"), "{stderr}");
+    assert!(
+        stderr.contains("wrong patch: the tone is on input 5"),
+        "{stderr}"
+    );
     assert!(stderr.contains("not on input 4"), "{stderr}");
     let stdout = String::from_utf8_lossy(&out.stdout);
     let stderr = String::from_utf8_lossy(&out.stderr);
-    assert!(out.status.success(), "septum measure failed: {stderr}\n{stdout}");
-    assert!(stdout.contains("Before the first tone"), "cautions shown: {stdout}");
+    assert!(
+        out.status.success(),
+        "septum measure failed: {stderr}\n{stdout}"
+    );
+    assert!(
+        stdout.contains("Before the first tone"),
+        "cautions shown: {stdout}"
+    );
     w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
     let rows = read_csv(&w.path("results/pairs.csv"));
     assert_eq!(rows.len(), 3 * 2 * 7);
@@ -155,6 +206,10 @@ record_samples = 16384
         let want = -coupling_db(a - 1, v - 1);
         let got = num(r, "separation_db");
         assert_eq!(r["floor_limited"], "false", "{r:?}");
-        assert!((got - want).abs() <= 0.1, "{a}->{v} at {}: {got:.3} dB, want {want:.3}", r["frequency_hz"]);
+        assert!(
+            (got - want).abs() <= 0.1,
+            "{a}->{v} at {}: {got:.3} dB, want {want:.3}",
+            r["frequency_hz"]
+        );
     }
 }

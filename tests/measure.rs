@@ -16,7 +16,10 @@ fn procedure(w: &Workdir, name: &str, edits: &[(&str, &str)]) -> String {
     ))
     .unwrap();
     for (old, new) in edits {
-        assert!(text.contains(old), "procedure edit target {old:?} not found");
+        assert!(
+            text.contains(old),
+            "procedure edit target {old:?} not found"
+        );
         text = text.replacen(old, new, 1);
     }
     std::fs::write(w.path(name), text).unwrap();
@@ -25,9 +28,18 @@ fn procedure(w: &Workdir, name: &str, edits: &[(&str, &str)]) -> String {
 
 /// Two frequencies, shorter records: every pair of the matrix, quickly.
 const SHORT: &[(&str, &str)] = &[
-    ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0, 16000.0]"),
-    ("record_samples = 65536     # steady", "record_samples = 32768     # steady"),
-    ("record_samples = 65536     # one", "record_samples = 32768     # one"),
+    (
+        "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+        "preferred_hz = [1000.0, 16000.0]",
+    ),
+    (
+        "record_samples = 65536     # steady",
+        "record_samples = 32768     # steady",
+    ),
+    (
+        "record_samples = 65536     # one",
+        "record_samples = 32768     # one",
+    ),
 ];
 
 fn manifest(dir: &Path) -> serde_json::Value {
@@ -47,7 +59,16 @@ fn capture_files(dir: &Path) -> Vec<String> {
 fn simulated_measure_recovers_the_model() {
     let w = Workdir::new();
     let p = procedure(&w, "p.toml", SHORT);
-    w.ok(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q"]);
+    w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "-q",
+    ]);
     let m = manifest(&w.path("run"));
     assert_eq!(m["measure"]["complete"], true);
     assert_eq!(m["captures"].as_array().unwrap().len(), 17);
@@ -55,7 +76,11 @@ fn simulated_measure_recovers_the_model() {
     w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
     let a = agreement(&w.path("run"), &w.path("results"));
     assert!(a.strong > 20 && a.detected > a.strong, "{a:?}");
-    assert!(a.strong_max_err <= 0.05, "strong pairs off by {:.4} dB: {a:?}", a.strong_max_err);
+    assert!(
+        a.strong_max_err <= 0.05,
+        "strong pairs off by {:.4} dB: {a:?}",
+        a.strong_max_err
+    );
     assert!(a.max_z <= 4.5, "{a:?}");
     assert_eq!(a.missed, 0, "{a:?}");
     assert_eq!(a.bounded, a.bounded_ok, "{a:?}");
@@ -65,14 +90,32 @@ fn simulated_measure_recovers_the_model() {
 #[test]
 fn wrong_patch_is_caught_and_named() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0]"),
-        ("retries = 2", "retries = 1"),
-        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            ("retries = 2", "retries = 1"),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+        ],
+    );
     let err = w.fails(&[
-        "measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q",
-        "--sim-miswire", "3:4",
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "-q",
+        "--sim-miswire",
+        "3:4",
     ]);
     assert!(err.contains("step 3"), "{err}");
     assert!(err.contains("wrong patch: the tone is on input 4"), "{err}");
@@ -89,17 +132,43 @@ fn wrong_patch_is_caught_and_named() {
 #[test]
 fn a_lost_block_voids_the_capture_and_it_is_redone() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0]"),
-        ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 2, 3]"),
-        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
-        ("record_samples = 65536     # one", "record_samples = 0     # one"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            (
+                "aggressors = [1, 2, 3, 4, 5, 6, 7, 8]",
+                "aggressors = [1, 2, 3]",
+            ),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 0     # one",
+            ),
+        ],
+    );
     let out = w.ok(&[
-        "measure", "--procedure", &p, "--out", "run", "--simulated", "--yes",
-        "--sim-xrun-in-capture", "4",
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "--sim-xrun-in-capture",
+        "4",
     ]);
-    assert!(out.contains("step 2 attempt 1 failed: capture lost data: 1 xrun(s)"), "{out}");
+    assert!(
+        out.contains("step 2 attempt 1 failed: capture lost data: 1 xrun(s)"),
+        "{out}"
+    );
     let m = manifest(&w.path("run"));
     let caps = m["captures"].as_array().unwrap();
     assert_eq!(caps.len(), 3);
@@ -111,13 +180,37 @@ fn a_lost_block_voids_the_capture_and_it_is_redone() {
 #[test]
 fn killed_measurement_resumes_without_loss_or_duplicates() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0, 4000.0]"),
-        ("record_samples = 65536     # steady", "record_samples = 16384     # steady"),
-        ("record_samples = 65536     # one", "record_samples = 16384     # one"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0, 4000.0]",
+            ),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 16384     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 16384     # one",
+            ),
+        ],
+    );
     let mut child = Command::new(env!("CARGO_BIN_EXE_septum"))
-        .args(["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q", "--sim-speed", "2"])
+        .args([
+            "measure",
+            "--procedure",
+            &p,
+            "--out",
+            "run",
+            "--simulated",
+            "--yes",
+            "-q",
+            "--sim-speed",
+            "2",
+        ])
         .current_dir(w.dir.path())
         .stdin(Stdio::null())
         .stdout(Stdio::null())
@@ -134,12 +227,18 @@ fn killed_measurement_resumes_without_loss_or_duplicates() {
             .map_or(0, |m| m["captures"].as_array().unwrap().len());
         // Mid-capture: a part file is being written after the third capture.
         let partial = std::fs::read_dir(run.join("captures"))
-            .map(|d| d.flatten().any(|e| e.file_name().to_string_lossy().ends_with(".part")))
+            .map(|d| {
+                d.flatten()
+                    .any(|e| e.file_name().to_string_lossy().ends_with(".part"))
+            })
             .unwrap_or(false);
         if n >= 3 && partial {
             break;
         }
-        assert!(t0.elapsed() < Duration::from_secs(60), "measurement did not progress");
+        assert!(
+            t0.elapsed() < Duration::from_secs(60),
+            "measurement did not progress"
+        );
     }
     child.kill().unwrap();
     child.wait().unwrap();
@@ -147,17 +246,57 @@ fn killed_measurement_resumes_without_loss_or_duplicates() {
     assert!(before.len() >= 3 && before.len() < 17, "{before:?}");
     septum::run::Manifest::load(&run).unwrap();
     // Resuming with another procedure is refused.
-    let other = procedure(&w, "other.toml", &[("level_dbfs = -1.0", "level_dbfs = -2.0")]);
-    let err = w.fails(&["measure", "--procedure", &other, "--out", "run", "--simulated", "--yes", "--resume"]);
-    assert!(err.contains("differs from the one this run started with"), "{err}");
+    let other = procedure(
+        &w,
+        "other.toml",
+        &[("level_dbfs = -1.0", "level_dbfs = -2.0")],
+    );
+    let err = w.fails(&[
+        "measure",
+        "--procedure",
+        &other,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "--resume",
+    ]);
+    assert!(
+        err.contains("differs from the one this run started with"),
+        "{err}"
+    );
     // Without --resume the folder is not reused.
-    let err = w.fails(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes"]);
+    let err = w.fails(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+    ]);
     assert!(err.contains("is not empty"), "{err}");
-    let out = w.ok(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "--resume"]);
-    assert!(out.contains(&format!("resuming: {} of 17", before.len())), "{out}");
+    let out = w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "--resume",
+    ]);
+    assert!(
+        out.contains(&format!("resuming: {} of 17", before.len())),
+        "{out}"
+    );
     let after = capture_files(&run);
     assert_eq!(after.len(), 17);
-    assert_eq!(&after[..before.len()], &before[..], "finished captures kept as they were");
+    assert_eq!(
+        &after[..before.len()],
+        &before[..],
+        "finished captures kept as they were"
+    );
     let mut unique = after.clone();
     unique.dedup();
     assert_eq!(unique.len(), 17);
@@ -177,12 +316,33 @@ fn killed_measurement_resumes_without_loss_or_duplicates() {
 #[test]
 fn interrupt_keeps_a_valid_run() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0]"),
-        ("record_samples = 65536     # steady", "record_samples = 16384     # steady"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 16384     # steady",
+            ),
+        ],
+    );
     let child = Command::new(env!("CARGO_BIN_EXE_septum"))
-        .args(["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q", "--sim-speed", "2"])
+        .args([
+            "measure",
+            "--procedure",
+            &p,
+            "--out",
+            "run",
+            "--simulated",
+            "--yes",
+            "-q",
+            "--sim-speed",
+            "2",
+        ])
         .current_dir(w.dir.path())
         .stdin(Stdio::null())
         .stdout(Stdio::null())
@@ -196,7 +356,10 @@ fn interrupt_keeps_a_valid_run() {
         assert!(t0.elapsed() < Duration::from_secs(60));
     }
     std::thread::sleep(Duration::from_millis(100));
-    Command::new("kill").args(["-INT", &child.id().to_string()]).status().unwrap();
+    Command::new("kill")
+        .args(["-INT", &child.id().to_string()])
+        .status()
+        .unwrap();
     let out = child.wait_with_output().unwrap();
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(1), "{stderr}");
@@ -205,7 +368,17 @@ fn interrupt_keeps_a_valid_run() {
     let kept = capture_files(&run).len();
     assert!(kept >= 1 && kept < 9);
     septum::run::Manifest::load(&run).unwrap();
-    w.ok(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "--resume", "-q"]);
+    w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "--resume",
+        "-q",
+    ]);
     assert_eq!(capture_files(&run).len(), 9);
 }
 
@@ -215,19 +388,54 @@ fn interrupt_keeps_a_valid_run() {
 fn bad_procedures_are_refused_before_anything_happens() {
     let w = Workdir::new();
     let cases: &[(&[(&str, &str)], &str)] = &[
-        (&[("level_dbfs = -1.0", "levl_dbfs = -1.0")], "line 37: unknown field `levl_dbfs`"),
-        (&[("level_dbfs = -1.0", "level_dbfs = -0.2")], "line 37: key `stimulus.level_dbfs`: -0.2 must lie between -80 and -0.5 dBFS"),
-        (&[("level_dbfs = -1.0", "level_dbfs = \"loud\"")], "line 37: key `level_dbfs`: invalid type"),
-        (&[("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 9]")], "line 31: key `test.aggressors`: 9 is not an input from 1 to 8"),
-        (&[("record_samples = 65536     # steady", "# record_samples")], "key `stimulus.record_samples`: missing"),
-        (&[("number = 7", "number = 12")], "line 27: key `input.number`: 12 is not an input from 1 to 8"),
-        (&[("preferred_hz = [125.0,", "preferred_hz = [30000.0,")], "line 41: key `stimulus.preferred_hz`: 30000 Hz must lie between"),
-        (&[("source = \"output\"", "source = \"speaker\"")], "line 35: key `source`: unknown variant `speaker`"),
+        (
+            &[("level_dbfs = -1.0", "levl_dbfs = -1.0")],
+            "line 37: unknown field `levl_dbfs`",
+        ),
+        (
+            &[("level_dbfs = -1.0", "level_dbfs = -0.2")],
+            "line 37: key `stimulus.level_dbfs`: -0.2 must lie between -80 and -0.5 dBFS",
+        ),
+        (
+            &[("level_dbfs = -1.0", "level_dbfs = \"loud\"")],
+            "line 37: key `level_dbfs`: invalid type",
+        ),
+        (
+            &[(
+                "aggressors = [1, 2, 3, 4, 5, 6, 7, 8]",
+                "aggressors = [1, 9]",
+            )],
+            "line 31: key `test.aggressors`: 9 is not an input from 1 to 8",
+        ),
+        (
+            &[("record_samples = 65536     # steady", "# record_samples")],
+            "key `stimulus.record_samples`: missing",
+        ),
+        (
+            &[("number = 7", "number = 12")],
+            "line 27: key `input.number`: 12 is not an input from 1 to 8",
+        ),
+        (
+            &[("preferred_hz = [125.0,", "preferred_hz = [30000.0,")],
+            "line 41: key `stimulus.preferred_hz`: 30000 Hz must lie between",
+        ),
+        (
+            &[("source = \"output\"", "source = \"speaker\"")],
+            "line 35: key `source`: unknown variant `speaker`",
+        ),
     ];
     for (i, (edits, want)) in cases.iter().enumerate() {
         let name = format!("bad{i}.toml");
         let p = procedure(&w, &name, edits);
-        let err = w.fails(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes"]);
+        let err = w.fails(&[
+            "measure",
+            "--procedure",
+            &p,
+            "--out",
+            "run",
+            "--simulated",
+            "--yes",
+        ]);
         assert!(err.contains(&name), "{err}");
         assert!(err.contains(want), "case {i}: want {want:?} in {err}");
         assert!(!w.path("run").exists(), "nothing may be created: {err}");
@@ -235,7 +443,15 @@ fn bad_procedures_are_refused_before_anything_happens() {
     // Guided mode without a terminal is an error, not a hang.
     let p = procedure(&w, "ok.toml", &[]);
     let out = Command::new(env!("CARGO_BIN_EXE_septum"))
-        .args(["measure", "--procedure", &p, "--out", "run", "--host", "alsa"])
+        .args([
+            "measure",
+            "--procedure",
+            &p,
+            "--out",
+            "run",
+            "--host",
+            "alsa",
+        ])
         .current_dir(w.dir.path())
         .stdin(Stdio::null())
         .output()
@@ -245,9 +461,22 @@ fn bad_procedures_are_refused_before_anything_happens() {
     assert!(stderr.contains("not a terminal"), "{stderr}");
     assert!(!w.path("run").exists());
     // JACK ports must be named, one per input, before any client is opened.
-    let err = w.fails(&["measure", "--procedure", &p, "--out", "run", "--host", "jack", "--yes",
-        "--jack-input-ports", "a:1,a:2"]);
-    assert!(err.contains("--jack-input-ports names 2 port(s) for the procedure's 8 inputs"), "{err}");
+    let err = w.fails(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--host",
+        "jack",
+        "--yes",
+        "--jack-input-ports",
+        "a:1,a:2",
+    ]);
+    assert!(
+        err.contains("--jack-input-ports names 2 port(s) for the procedure's 8 inputs"),
+        "{err}"
+    );
     assert!(!w.path("run").exists());
 }
 
@@ -265,7 +494,10 @@ fn shipped_procedures_are_valid() {
 #[test]
 fn external_generator_mode() {
     let w = Workdir::new();
-    let model = w.model("m.toml", &[("generator_offset_ppm = 0.0", "generator_offset_ppm = 300.0")]);
+    let model = w.model(
+        "m.toml",
+        &[("generator_offset_ppm = 0.0", "generator_offset_ppm = 300.0")],
+    );
     let mut edits = SHORT.to_vec();
     edits.push(("source = \"output\"", "source = \"generator\""));
     let p = procedure(&w, "p.toml", &edits);
@@ -278,7 +510,10 @@ fn external_generator_mode() {
     assert!((tone / 1006.34765625 - 1.0 - 300e-6).abs() < 1e-6, "{tone}");
     w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
     let a = agreement(&w.path("run"), &w.path("results"));
-    assert!(a.strong > 20 && a.strong_max_err <= 0.05 && a.max_z <= 4.5, "{a:?}");
+    assert!(
+        a.strong > 20 && a.strong_max_err <= 0.05 && a.max_z <= 4.5,
+        "{a:?}"
+    );
     assert!(a.floor_max_err <= 0.5, "{a:?}");
 }
 
@@ -287,21 +522,58 @@ fn external_generator_mode() {
 #[test]
 fn device_failure_keeps_the_run_and_resumes() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0]"),
-        ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 2, 3]"),
-        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
-        ("record_samples = 65536     # one", "record_samples = 8192     # one"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            (
+                "aggressors = [1, 2, 3, 4, 5, 6, 7, 8]",
+                "aggressors = [1, 2, 3]",
+            ),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 8192     # one",
+            ),
+        ],
+    );
     // Captures: quiet check 1, step 1, quiet check 2, step 2, quiet check 3 …
     let err = w.fails(&[
-        "measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q",
-        "--sim-fail-in-capture", "4",
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "-q",
+        "--sim-fail-in-capture",
+        "4",
     ]);
-    assert!(err.contains("the device reported an error and stopped"), "{err}");
+    assert!(
+        err.contains("the device reported an error and stopped"),
+        "{err}"
+    );
     assert_eq!(capture_files(&w.path("run")).len(), 1);
     septum::run::Manifest::load(&w.path("run")).unwrap();
-    w.ok(&["measure", "--procedure", &p, "--out", "run", "--simulated", "--yes", "-q", "--resume"]);
+    w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+        "-q",
+        "--resume",
+    ]);
     assert_eq!(capture_files(&w.path("run")).len(), 4);
     assert_eq!(manifest(&w.path("run"))["measure"]["complete"], true);
 }
@@ -310,7 +582,9 @@ fn device_failure_keeps_the_run_and_resumes() {
 /// typed in; `None` when `script` is not installed.
 fn on_terminal(w: &Workdir, args: &str, keys: &str) -> Option<(i32, String)> {
     if Command::new("script").arg("--version").output().is_err() {
-        eprintln!("SKIPPED: util-linux `script` is not installed; the guided-mode test needs a terminal");
+        eprintln!(
+            "SKIPPED: util-linux `script` is not installed; the guided-mode test needs a terminal"
+        );
         return None;
     }
     let cmd = format!("{} {args}", env!("CARGO_BIN_EXE_septum"));
@@ -323,7 +597,12 @@ fn on_terminal(w: &Workdir, args: &str, keys: &str) -> Option<(i32, String)> {
         .spawn()
         .unwrap();
     use std::io::Write;
-    child.stdin.take().unwrap().write_all(keys.as_bytes()).unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(keys.as_bytes())
+        .unwrap();
     let out = child.wait_with_output().unwrap();
     let text = String::from_utf8_lossy(&out.stdout).into_owned();
     assert!(!text.contains("panicked"), "{text}");
@@ -334,22 +613,46 @@ fn on_terminal(w: &Workdir, args: &str, keys: &str) -> Option<(i32, String)> {
 #[test]
 fn guided_mode_waits_for_the_operator() {
     let w = Workdir::new();
-    let p = procedure(&w, "p.toml", &[
-        ("preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]", "preferred_hz = [1000.0, 4000.0]"),
-        ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [1, 2]"),
-        ("record_samples = 65536     # steady", "record_samples = 8192     # steady"),
-        ("record_samples = 65536     # one", "record_samples = 8192     # one"),
-    ]);
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0, 4000.0]",
+            ),
+            (
+                "aggressors = [1, 2, 3, 4, 5, 6, 7, 8]",
+                "aggressors = [1, 2]",
+            ),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 8192     # one",
+            ),
+        ],
+    );
     let args = format!("measure --procedure {p} --out run --simulated --sim-ask -q");
-    let Some((code, text)) = on_terminal(&w, &args, "\n\n\n") else { return };
+    let Some((code, text)) = on_terminal(&w, &args, "\n\n\n") else {
+        return;
+    };
     assert_eq!(code, 0, "{text}");
     // Two aggressors and the idle capture: three patches, three waits.
     assert_eq!(text.matches("Press Enter when done").count(), 3, "{text}");
-    assert!(text.find("Before the first tone") < text.find("Press Enter"), "{text}");
+    assert!(
+        text.find("Before the first tone") < text.find("Press Enter"),
+        "{text}"
+    );
     assert_eq!(capture_files(&w.path("run")).len(), 5);
     let args = format!("measure --procedure {p} --out run2 --simulated --sim-ask -q");
     let (code, text) = on_terminal(&w, &args, "\nq\n").unwrap();
     assert_eq!(code, 1, "{text}");
-    assert!(text.contains("stopped by the operator; 2 of 5 capture(s) finished and kept"), "{text}");
+    assert!(
+        text.contains("stopped by the operator; 2 of 5 capture(s) finished and kept"),
+        "{text}"
+    );
     assert_eq!(capture_files(&w.path("run2")).len(), 2);
 }

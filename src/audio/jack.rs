@@ -63,8 +63,11 @@ pub struct Connector {
 
 impl Connector {
     fn new(prefix: &str) -> Result<Self, AudioError> {
-        let (client, _) = jack::Client::new(&format!("{prefix}_patch"), jack::ClientOptions::NO_START_SERVER)
-            .map_err(|e| AudioError::Device(format!("no JACK server answered: {e}")))?;
+        let (client, _) = jack::Client::new(
+            &format!("{prefix}_patch"),
+            jack::ClientOptions::NO_START_SERVER,
+        )
+        .map_err(|e| AudioError::Device(format!("no JACK server answered: {e}")))?;
         Ok(Self { client })
     }
 
@@ -99,6 +102,8 @@ impl Connector {
 
     /// Every port the server knows, for listings.
     pub fn list(prefix: &str) -> Result<Vec<String>, AudioError> {
-        Ok(Self::new(prefix)?.client.ports(None, None, jack::PortFlags::empty()))
+        Ok(Self::new(prefix)?
+            .client
+            .ports(None, None, jack::PortFlags::empty()))
     }
 }

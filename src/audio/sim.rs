@@ -177,7 +177,10 @@ impl SimDevice {
                 e.running = false;
                 return;
             }
-            let in_on = e.inp.as_ref().is_some_and(|(_, _, on)| on.load(Ordering::Relaxed));
+            let in_on = e
+                .inp
+                .as_ref()
+                .is_some_and(|(_, _, on)| on.load(Ordering::Relaxed));
             if !in_on {
                 continue;
             }
@@ -186,13 +189,23 @@ impl SimDevice {
             if let Some((cb, _, on)) = e.out.as_mut() {
                 if on.load(Ordering::Relaxed) {
                     // SAFETY: `tx` holds `n` f32 samples and outlives the call.
-                    let mut d = unsafe { Data::from_parts(tx.as_mut_ptr().cast(), n, SampleFormat::F32) };
-                    cb(&mut d, &OutputCallbackInfo::new(OutputStreamTimestamp { callback: t, playback: t + dt }));
+                    let mut d =
+                        unsafe { Data::from_parts(tx.as_mut_ptr().cast(), n, SampleFormat::F32) };
+                    cb(
+                        &mut d,
+                        &OutputCallbackInfo::new(OutputStreamTimestamp {
+                            callback: t,
+                            playback: t + dt,
+                        }),
+                    );
                 }
             }
             at.fill(0.0);
             let b = &self.bench;
-            let (o, i) = (b.output.load(Ordering::Relaxed), b.input.load(Ordering::Relaxed));
+            let (o, i) = (
+                b.output.load(Ordering::Relaxed),
+                b.input.load(Ordering::Relaxed),
+            );
             if i != NONE && o < ch {
                 for (fo, fi) in tx.chunks_exact(ch).zip(at.chunks_exact_mut(ch)) {
                     fi[i] = fo[o];
@@ -207,19 +220,31 @@ impl SimDevice {
                     gen_phase = (gen_phase + w) % (2.0 * PI);
                 }
             }
-            self.processor.lock().expect("processor lock").process(&at, &mut rx);
+            self.processor
+                .lock()
+                .expect("processor lock")
+                .process(&at, &mut rx);
             if let Some((cb, err, _)) = e.inp.as_mut() {
                 if b.xruns.load(Ordering::Relaxed) > 0 {
                     b.xruns.fetch_sub(1, Ordering::Relaxed);
                     err(ErrorKind::Xrun.into());
                 }
                 if b.gone.swap(false, Ordering::Relaxed) {
-                    err(Error::with_message(ErrorKind::DeviceNotAvailable, "simulated front end unplugged"));
+                    err(Error::with_message(
+                        ErrorKind::DeviceNotAvailable,
+                        "simulated front end unplugged",
+                    ));
                 }
                 // SAFETY: `rx` holds `n` f32 samples and outlives the call.
                 let d = unsafe { Data::from_parts(rx.as_mut_ptr().cast(), n, SampleFormat::F32) };
                 let capture = t.checked_sub(dt).unwrap_or(StreamInstant::ZERO);
-                cb(&d, &InputCallbackInfo::new(InputStreamTimestamp { callback: t, capture }));
+                cb(
+                    &d,
+                    &InputCallbackInfo::new(InputStreamTimestamp {
+                        callback: t,
+                        capture,
+                    }),
+                );
             }
         }
     }
@@ -318,7 +343,9 @@ impl DeviceTrait for SimDevice {
         E: FnMut(Error) + Send + 'static,
     {
         self.check(&config, fmt)?;
-        self.attach(true, |e, on| e.inp = Some((Box::new(data), Box::new(err), on)))
+        self.attach(true, |e, on| {
+            e.inp = Some((Box::new(data), Box::new(err), on))
+        })
     }
     fn build_output_stream_raw<D, E>(
         &self,
@@ -333,7 +360,9 @@ impl DeviceTrait for SimDevice {
         E: FnMut(Error) + Send + 'static,
     {
         self.check(&config, fmt)?;
-        self.attach(false, |e, on| e.out = Some((Box::new(data), Box::new(err), on)))
+        self.attach(false, |e, on| {
+            e.out = Some((Box::new(data), Box::new(err), on))
+        })
     }
 }
 
@@ -369,8 +398,14 @@ pub struct SimRig {
 
 impl SimRig {
     /// Open the simulated front end of `r` through a cpal custom host.
-    pub fn open(r: &Resolved, speed: f64, faults: SimFaults, seed: u64) -> Result<Self, AudioError> {
-        let latency = (r.model.stimulus.latency_s * f64::from(r.model.front_end.sample_rate_hz)).round() as usize;
+    pub fn open(
+        r: &Resolved,
+        speed: f64,
+        faults: SimFaults,
+        seed: u64,
+    ) -> Result<Self, AudioError> {
+        let latency = (r.model.stimulus.latency_s * f64::from(r.model.front_end.sample_rate_hz))
+            .round() as usize;
         let dev = SimDevice::new(r, latency, speed, seed);
         let bench = dev.bench.clone();
         let host = cpal::Host::from(cpal::platform::CustomHost::from_host(SimHost(dev)));
@@ -405,7 +440,9 @@ impl SimRig {
             Some((want, got)) if want == i + 1 => got - 1,
             _ => i,
         });
-        self.bench.input.store(input.unwrap_or(NONE), Ordering::Relaxed);
+        self.bench
+            .input
+            .store(input.unwrap_or(NONE), Ordering::Relaxed);
     }
 }
 
@@ -446,12 +483,15 @@ impl Rig for SimRig {
     }
     fn self_generator(&mut self, input: Option<usize>, freq_hz: f64, level_dbfs: f64) -> bool {
         self.bench.output.store(NONE, Ordering::Relaxed);
-        self.bench
-            .gen_hz
-            .store(
-                if input.is_some() { freq_hz * (1.0 + self.gen_ppm * 1e-6) } else { 0.0 }.to_bits(),
-                Ordering::Relaxed,
-            );
+        self.bench.gen_hz.store(
+            if input.is_some() {
+                freq_hz * (1.0 + self.gen_ppm * 1e-6)
+            } else {
+                0.0
+            }
+            .to_bits(),
+            Ordering::Relaxed,
+        );
         self.bench
             .gen_amp
             .store(10f64.powf(level_dbfs / 20.0).to_bits(), Ordering::Relaxed);

@@ -280,7 +280,9 @@ impl CpalRig {
                         pos: 0,
                     });
                     if cmd.push(st).is_err() {
-                        break Err(AudioError::Device("the output did not take the stimulus".into()));
+                        break Err(AudioError::Device(
+                            "the output did not take the stimulus".into(),
+                        ));
                     }
                     sent = true;
                 }

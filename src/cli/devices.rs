@@ -90,7 +90,9 @@ pub fn run(_args: Args) -> Result<u8> {
         }
     }
     if !jack_empty {
-        if let Ok(ports) = septum::audio::jack::Connector::list(&format!("septum{}_list", std::process::id())) {
+        if let Ok(ports) =
+            septum::audio::jack::Connector::list(&format!("septum{}_list", std::process::id()))
+        {
             println!("JACK ports (for --jack-output-ports and --jack-input-ports):");
             for p in ports {
                 println!("  {p}");

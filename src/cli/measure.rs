@@ -130,13 +130,17 @@ impl Operator for Console {
 /// The model of a simulated run, set to the plan's frequencies, level and record.
 pub fn sim_model(plan: &Plan, spec: &str) -> Result<(Resolved, String)> {
     let (model, text) = if spec.is_empty() {
-        (FrontEndModel::default_scenario(), DEFAULT_MODEL_TOML.to_string())
+        (
+            FrontEndModel::default_scenario(),
+            DEFAULT_MODEL_TOML.to_string(),
+        )
     } else {
         let p = Path::new(spec);
         (FrontEndModel::load(p)?, std::fs::read_to_string(p)?)
     };
     let fe = &plan.procedure.front_end;
-    if model.front_end.channels != fe.inputs || model.front_end.sample_rate_hz != fe.sample_rate_hz {
+    if model.front_end.channels != fe.inputs || model.front_end.sample_rate_hz != fe.sample_rate_hz
+    {
         bail!(
             "the simulated front end has {} inputs at {} Hz, the procedure wants {} at {} Hz",
             model.front_end.channels,
@@ -187,7 +191,13 @@ fn open_real(args: &Args, plan: &Plan) -> Result<Box<dyn Rig>> {
             bail!("--jack-output-ports is missing: name the port(s) the stimulus output feeds (see `septum devices`)");
         }
         let prefix = format!("septum{}", std::process::id());
-        let (rig, _conn) = open_rig(&prefix, fe.inputs as u16, st.output as usize - 1, fe.sample_rate_hz, &ports)?;
+        let (rig, _conn) = open_rig(
+            &prefix,
+            fe.inputs as u16,
+            st.output as usize - 1,
+            fe.sample_rate_hz,
+            &ports,
+        )?;
         return Ok(Box::new(rig));
     }
     let id = cpal::available_hosts()
@@ -200,12 +210,18 @@ fn open_real(args: &Args, plan: &Plan) -> Result<Box<dyn Rig>> {
             Some(name) => h
                 .devices()?
                 .find(|d| {
-                    d.id().map(|i| i.to_string() == *name || i.id() == name).unwrap_or(false)
+                    d.id()
+                        .map(|i| i.to_string() == *name || i.id() == name)
+                        .unwrap_or(false)
                         || d.description().map(|x| x.name() == name).unwrap_or(false)
                 })
                 .with_context(|| format!("--device {name}: no such device on host {host}")),
-            None => if input { h.default_input_device() } else { h.default_output_device() }
-                .with_context(|| format!("host {host} has no default device")),
+            None => if input {
+                h.default_input_device()
+            } else {
+                h.default_output_device()
+            }
+            .with_context(|| format!("host {host} has no default device")),
         }
     };
     let input = pick(true)?;
@@ -310,7 +326,10 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
             outcome.retries,
             args.out.display()
         );
-        println!("analyse with: septum analyze {} --out RESULTS", args.out.display());
+        println!(
+            "analyse with: septum analyze {} --out RESULTS",
+            args.out.display()
+        );
     }
     Ok(outcome.recorded + outcome.resumed)
 }

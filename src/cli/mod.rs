@@ -104,13 +104,43 @@ mod tests {
         Cli::try_parse_from(["septum", "demo"]).unwrap();
         Cli::try_parse_from(["septum", "devices"]).unwrap();
         Cli::try_parse_from([
-            "septum", "measure", "--procedure", "p.toml", "--out", "run", "--host", "jack",
-            "--jack-output-ports", "a:in", "--jack-input-ports", "b:out_1,b:out_2",
-            "--switch-command", "true", "--resume",
+            "septum",
+            "measure",
+            "--procedure",
+            "p.toml",
+            "--out",
+            "run",
+            "--host",
+            "jack",
+            "--jack-output-ports",
+            "a:in",
+            "--jack-input-ports",
+            "b:out_1,b:out_2",
+            "--switch-command",
+            "true",
+            "--resume",
         ])
         .unwrap();
-        Cli::try_parse_from(["septum", "measure", "--procedure", "p", "--out", "r", "--simulated"]).unwrap();
-        Cli::try_parse_from(["septum", "measure", "--procedure", "p", "--out", "r", "--simulated=m.toml"]).unwrap();
+        Cli::try_parse_from([
+            "septum",
+            "measure",
+            "--procedure",
+            "p",
+            "--out",
+            "r",
+            "--simulated",
+        ])
+        .unwrap();
+        Cli::try_parse_from([
+            "septum",
+            "measure",
+            "--procedure",
+            "p",
+            "--out",
+            "r",
+            "--simulated=m.toml",
+        ])
+        .unwrap();
         assert!(Cli::try_parse_from(["septum", "measure", "--out", "r"]).is_err());
         assert!(Cli::try_parse_from(["septum", "analyze", "run"]).is_err());
     }

@@ -155,14 +155,11 @@ impl StreamProcessor {
                     self.active[c] -= 1;
                 }
             }
-            let tap = |k: usize| ((self.pos + self.depth * 2 - (self.depth - 3) - k) % self.depth) * n;
+            let tap =
+                |k: usize| ((self.pos + self.depth * 2 - (self.depth - 3) - k) % self.depth) * n;
             let (r0, r1, r2) = (tap(0), tap(1), tap(2));
             let t = self.sample as f64;
-            let hum: f64 = self
-                .hum
-                .iter()
-                .map(|(a, w, p)| a * (w * t + p).cos())
-                .sum();
+            let hum: f64 = self.hum.iter().map(|(a, w, p)| a * (w * t + p).cos()).sum();
             self.sample += 1;
             for v in 0..n {
                 let mut y = self.line[r1 + v];
@@ -172,10 +169,8 @@ impl StreamProcessor {
                     y += s * self.line[r1 + a] + 0.5 * k * (self.line[r0 + a] - self.line[r2 + a]);
                 }
                 let noise: f64 = self.rng.sample(StandardNormal);
-                let y = y * self.gain[v]
-                    + self.dc[v]
-                    + hum * self.hum_scale[v]
-                    + self.sigma[v] * noise;
+                let y =
+                    y * self.gain[v] + self.dc[v] + hum * self.hum_scale[v] + self.sigma[v] * noise;
                 let dither = self.rng.random::<f64>() - self.rng.random::<f64>();
                 let code = (y / self.q + dither)
                     .round()

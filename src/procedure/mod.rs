@@ -19,7 +19,8 @@ pub const QUIET_CHECK_DB: f64 = 20.0;
 
 /// Test frequencies when a procedure names none: octave-spaced values of
 /// the third-octave preferred series, kept up to fs/2.56 and nudged.
-pub const DEFAULT_PREFERRED_HZ: [f64; 8] = [125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0, 16000.0];
+pub const DEFAULT_PREFERRED_HZ: [f64; 8] =
+    [125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0, 16000.0];
 
 /// Highest stimulus level accepted, dBFS.
 pub const MAX_LEVEL_DBFS: f64 = -0.5;
@@ -245,8 +246,8 @@ fn key_line(text: &str, table: &str, nth: usize, key: &str) -> Option<usize> {
             }
             continue;
         }
-        let in_table = (table.is_empty() && current.is_empty())
-            || (current == table && seen == nth as isize);
+        let in_table =
+            (table.is_empty() && current.is_empty()) || (current == table && seen == nth as isize);
         if in_table {
             if let Some((k, _)) = t.split_once('=') {
                 if k.trim() == key {
@@ -340,7 +341,11 @@ impl Plan {
         let st = &p.stimulus;
         let bad = |table, key, msg: String| Err((table, 0, key, msg));
         if !(1..=64).contains(&fe.inputs) {
-            return bad("front_end", "inputs", format!("{} must lie between 1 and 64", fe.inputs));
+            return bad(
+                "front_end",
+                "inputs",
+                format!("{} must lie between 1 and 64", fe.inputs),
+            );
         }
         if !(8000..=384_000).contains(&fe.sample_rate_hz) {
             return bad(
@@ -350,15 +355,29 @@ impl Plan {
             );
         }
         if fe.termination.trim().is_empty() {
-            return bad("front_end", "termination", "must say how victims are terminated (\"short\", \"600 ohm\" …)".into());
+            return bad(
+                "front_end",
+                "termination",
+                "must say how victims are terminated (\"short\", \"600 ohm\" …)".into(),
+            );
         }
         let fs = f64::from(fe.sample_rate_hz);
         for (i, inp) in p.input.iter().enumerate() {
             if inp.number == 0 || inp.number > fe.inputs {
-                return Err(("input", i, "number", format!("{} is not an input from 1 to {}", inp.number, fe.inputs)));
+                return Err((
+                    "input",
+                    i,
+                    "number",
+                    format!("{} is not an input from 1 to {}", inp.number, fe.inputs),
+                ));
             }
             if p.input[..i].iter().any(|o| o.number == inp.number) {
-                return Err(("input", i, "number", format!("input {} is described twice", inp.number)));
+                return Err((
+                    "input",
+                    i,
+                    "number",
+                    format!("input {} is described twice", inp.number),
+                ));
             }
         }
         let mut aggressors = p.test.aggressors.clone();
@@ -367,56 +386,117 @@ impl Plan {
         }
         for (i, a) in aggressors.iter().enumerate() {
             if *a == 0 || *a > fe.inputs {
-                return bad("test", "aggressors", format!("{a} is not an input from 1 to {}", fe.inputs));
+                return bad(
+                    "test",
+                    "aggressors",
+                    format!("{a} is not an input from 1 to {}", fe.inputs),
+                );
             }
             if aggressors[..i].contains(a) {
                 return bad("test", "aggressors", format!("input {a} is listed twice"));
             }
         }
         if p.test.retries > 10 {
-            return bad("test", "retries", format!("{} must lie between 0 and 10", p.test.retries));
+            return bad(
+                "test",
+                "retries",
+                format!("{} must lie between 0 and 10", p.test.retries),
+            );
         }
         if st.output == 0 || st.output > 64 {
-            return bad("stimulus", "output", format!("{} must be an output from 1 to 64", st.output));
+            return bad(
+                "stimulus",
+                "output",
+                format!("{} must be an output from 1 to 64", st.output),
+            );
         }
-        if !(st.level_dbfs.is_finite() && st.level_dbfs <= MAX_LEVEL_DBFS && st.level_dbfs >= -80.0) {
+        if !(st.level_dbfs.is_finite() && st.level_dbfs <= MAX_LEVEL_DBFS && st.level_dbfs >= -80.0)
+        {
             return bad(
                 "stimulus",
                 "level_dbfs",
-                format!("{} must lie between -80 and {MAX_LEVEL_DBFS} dBFS", st.level_dbfs),
+                format!(
+                    "{} must lie between -80 and {MAX_LEVEL_DBFS} dBFS",
+                    st.level_dbfs
+                ),
             );
         }
-        for (k, v, lo, hi) in [("settle_s", st.settle_s, 0.0, 10.0), ("ramp_s", st.ramp_s, 0.001, 1.0)] {
+        for (k, v, lo, hi) in [
+            ("settle_s", st.settle_s, 0.0, 10.0),
+            ("ramp_s", st.ramp_s, 0.001, 1.0),
+        ] {
             if !(v >= lo && v <= hi) {
-                return bad("stimulus", k, format!("{v} must lie between {lo} and {hi} s"));
+                return bad(
+                    "stimulus",
+                    k,
+                    format!("{v} must lie between {lo} and {hi} s"),
+                );
             }
         }
-        let record = match (st.record_samples, st.detection_limit_dbfs, st.expected_floor_dbfs) {
+        let record = match (
+            st.record_samples,
+            st.detection_limit_dbfs,
+            st.expected_floor_dbfs,
+        ) {
             (Some(_), Some(_), _) => {
-                return bad("stimulus", "detection_limit_dbfs", "give record_samples or detection_limit_dbfs, not both".into())
+                return bad(
+                    "stimulus",
+                    "detection_limit_dbfs",
+                    "give record_samples or detection_limit_dbfs, not both".into(),
+                )
             }
             (Some(r), None, _) => r,
             (None, Some(lim), Some(floor)) => {
                 if !(lim < floor && lim > -250.0 && floor < 0.0) {
-                    return bad("stimulus", "detection_limit_dbfs", format!("{lim} must lie below expected_floor_dbfs ({floor}) and above -250"));
+                    return bad(
+                        "stimulus",
+                        "detection_limit_dbfs",
+                        format!(
+                            "{lim} must lie below expected_floor_dbfs ({floor}) and above -250"
+                        ),
+                    );
                 }
                 record_for_limit(lim, floor)
             }
-            (None, Some(_), None) => {
-                return bad("stimulus", "detection_limit_dbfs", "needs expected_floor_dbfs (the inputs' broadband floor) to derive a record length".into())
-            }
-            (None, None, _) => {
-                return bad("stimulus", "record_samples", "missing: give record_samples, or detection_limit_dbfs with expected_floor_dbfs".into())
-            }
+            (None, Some(_), None) => return bad(
+                "stimulus",
+                "detection_limit_dbfs",
+                "needs expected_floor_dbfs (the inputs' broadband floor) to derive a record length"
+                    .into(),
+            ),
+            (None, None, _) => return bad(
+                "stimulus",
+                "record_samples",
+                "missing: give record_samples, or detection_limit_dbfs with expected_floor_dbfs"
+                    .into(),
+            ),
         };
         if !(4096..=1 << 24).contains(&record) {
-            let key = if st.record_samples.is_some() { "record_samples" } else { "detection_limit_dbfs" };
-            return bad("stimulus", key, format!("needs {record} samples; the record must lie between 4096 and 16777216 samples"));
+            let key = if st.record_samples.is_some() {
+                "record_samples"
+            } else {
+                "detection_limit_dbfs"
+            };
+            return bad(
+                "stimulus",
+                key,
+                format!(
+                    "needs {record} samples; the record must lie between 4096 and 16777216 samples"
+                ),
+            );
         }
         if !st.frequencies_hz.is_empty() && !st.preferred_hz.is_empty() {
-            return bad("stimulus", "preferred_hz", "give frequencies_hz or preferred_hz, not both".into());
+            return bad(
+                "stimulus",
+                "preferred_hz",
+                "give frequencies_hz or preferred_hz, not both".into(),
+            );
         }
-        let key = if st.frequencies_hz.is_empty() { "preferred_hz" } else { "frequencies_hz" };
+        let key = if st.frequencies_hz.is_empty() {
+            "preferred_hz"
+        } else {
+            "frequencies_hz"
+        };
         // Default: octave-spaced preferred frequencies within the usable band fs/2.56.
         let defaults: Vec<f64> = DEFAULT_PREFERRED_HZ
             .iter()
@@ -431,25 +511,47 @@ impl Plan {
         let mut freqs = Vec::new();
         for f in given {
             if !(*f >= 10.0 && *f <= 0.45 * fs) {
-                return bad("stimulus", key, format!("{f} Hz must lie between 10 Hz and 0.45·fs = {} Hz", 0.45 * fs));
+                return bad(
+                    "stimulus",
+                    key,
+                    format!(
+                        "{f} Hz must lie between 10 Hz and 0.45·fs = {} Hz",
+                        0.45 * fs
+                    ),
+                );
             }
             let g = if st.frequencies_hz.is_empty() {
                 match nudge_coherent(*f, fs, record, 5.0) {
                     Some((_, g)) => g,
-                    None => return bad("stimulus", key, format!("{f} Hz has no coherent frequency clear of mains within 10 %")),
+                    None => {
+                        return bad(
+                            "stimulus",
+                            key,
+                            format!("{f} Hz has no coherent frequency clear of mains within 10 %"),
+                        )
+                    }
                 }
             } else {
                 *f
             };
             if freqs.contains(&g) {
-                return bad("stimulus", key, format!("{f} Hz is listed twice (or nudges onto another)"));
+                return bad(
+                    "stimulus",
+                    key,
+                    format!("{f} Hz is listed twice (or nudges onto another)"),
+                );
             }
             freqs.push(g);
         }
         freqs.sort_by(f64::total_cmp);
         let idle = p.idle.record_samples;
         if idle != 0 && !(4096..=1 << 24).contains(&idle) {
-            return Err(("idle", 0, "record_samples", format!("{idle} must be 0 (no idle capture) or lie between 4096 and 16777216")));
+            return Err((
+                "idle",
+                0,
+                "record_samples",
+                format!("{idle} must be 0 (no idle capture) or lie between 4096 and 16777216"),
+            ));
         }
         let mut steps = Vec::new();
         for &a in &aggressors {

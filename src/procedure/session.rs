@@ -7,9 +7,9 @@
 
 use super::{Plan, Source, Step};
 use crate::analysis::steady::steady_range;
-use crate::dsp::fit::{estimate_frequency, fit_tones};
 use crate::analysis::AnalysisConfig;
 use crate::audio::{AudioError, CaptureRequest, Rig};
+use crate::dsp::fit::{estimate_frequency, fit_tones};
 use crate::dsp::level::{amplitude_to_dbfs, rms_to_dbfs};
 use crate::run::{read_capture, CaptureEntry, ChannelEntry, Drive, Manifest, RunError, RUN_FORMAT};
 use serde_json::{json, Map, Value};
@@ -135,7 +135,12 @@ impl Folder {
             extra: opt.extra.clone(),
         };
         if !opt.resume {
-            if dir.exists() && std::fs::read_dir(&dir).map_err(|e| io(&dir, e))?.next().is_some() {
+            if dir.exists()
+                && std::fs::read_dir(&dir)
+                    .map_err(|e| io(&dir, e))?
+                    .next()
+                    .is_some()
+            {
                 return Err(SessionError::Setup(format!(
                     "{}: is not empty; measure into a new folder, or pass --resume to continue the run there",
                     dir.display()
@@ -159,7 +164,10 @@ impl Folder {
         }
         std::fs::create_dir_all(dir.join("captures")).map_err(|e| io(&dir, e))?;
         // Leftovers of a capture cut short are not captures.
-        for e in std::fs::read_dir(dir.join("captures")).map_err(|e| io(&dir, e))?.flatten() {
+        for e in std::fs::read_dir(dir.join("captures"))
+            .map_err(|e| io(&dir, e))?
+            .flatten()
+        {
             if e.file_name().to_string_lossy().ends_with(".part") {
                 let _ = std::fs::remove_file(e.path());
             }
@@ -197,7 +205,10 @@ impl Folder {
         extra.insert("created".into(), json!(self.created));
         extra.insert("procedure".into(), json!("procedure.toml"));
         if let Some(l) = &p.limits {
-            extra.insert("limits".into(), serde_json::to_value(l).unwrap_or(Value::Null));
+            extra.insert(
+                "limits".into(),
+                serde_json::to_value(l).unwrap_or(Value::Null),
+            );
         }
         extra.insert(
             "measure".into(),
@@ -279,7 +290,10 @@ fn instruction(plan: &Plan, step: &Step) -> String {
     let victims = |agg: Option<u32>| -> String {
         let mut by_term: BTreeMap<String, Vec<String>> = BTreeMap::new();
         for i in (1..=p.front_end.inputs).filter(|i| Some(*i) != agg) {
-            by_term.entry(plan.termination(i)).or_default().push(i.to_string());
+            by_term
+                .entry(plan.termination(i))
+                .or_default()
+                .push(i.to_string());
         }
         by_term
             .iter()
@@ -351,7 +365,8 @@ fn check(
             i + 1
         ));
     }
-    let cap = read_capture(path, fe.inputs as usize, fe.sample_rate_hz).map_err(|e| e.to_string())?;
+    let cap =
+        read_capture(path, fe.inputs as usize, fe.sample_rate_hz).map_err(|e| e.to_string())?;
     let level: Vec<f64> = cap
         .channels
         .iter()
@@ -405,9 +420,16 @@ fn check(
     let x = &cap.channels[agg as usize - 1];
     let fs = f64::from(fe.sample_rate_hz);
     let span = steady_range(x, fs, f).map_err(|e| format!("input {agg} at {f} Hz: {e}"))?;
-    let est = estimate_frequency(&x[span.clone()], fs, f, config.frequency_search, config.max_harmonic)
-        .map_err(|e| format!("input {agg}: {e}"))?;
-    let fit = fit_tones(&[&x[span.clone()]], &est.model).map_err(|e| format!("input {agg}: {e}"))?;
+    let est = estimate_frequency(
+        &x[span.clone()],
+        fs,
+        f,
+        config.frequency_search,
+        config.max_harmonic,
+    )
+    .map_err(|e| format!("input {agg}: {e}"))?;
+    let fit =
+        fit_tones(&[&x[span.clone()]], &est.model).map_err(|e| format!("input {agg}: {e}"))?;
     let amplitude = fit[0].fundamental();
     let got = amplitude_to_dbfs(amplitude);
     if got < nominal - 10.0 {
@@ -460,7 +482,14 @@ fn capture_and_check(
         clip_level: opt.analysis.clip_level as f32,
     };
     match rig.capture(&req, cancel) {
-        Ok(report) => Ok(check(plan, step, part, &report.clipped, &opt.analysis, nominal)),
+        Ok(report) => Ok(check(
+            plan,
+            step,
+            part,
+            &report.clipped,
+            &opt.analysis,
+            nominal,
+        )),
         Err(AudioError::Interrupted) => {
             let _ = std::fs::remove_file(part);
             Err(SessionError::Stopped { kept: 0, total: 0 })
@@ -505,7 +534,9 @@ impl Session<'_> {
         let input = patch.map(|a| a as usize - 1);
         let out_idx = p.stimulus.output as usize - 1;
         let self_set = match (p.stimulus.source, step.drive) {
-            (Source::Generator, Some((_, f))) => self.rig.self_generator(input, f, p.stimulus.level_dbfs),
+            (Source::Generator, Some((_, f))) => {
+                self.rig.self_generator(input, f, p.stimulus.level_dbfs)
+            }
             (Source::Generator, None) => self.rig.self_generator(None, 0.0, -200.0),
             (Source::Output, _) => self.rig.self_patch(out_idx, input),
         };
@@ -513,7 +544,8 @@ impl Session<'_> {
         let text = instruction(self.plan, step);
         if self_set {
             if changed {
-                self.operator.tell(&format!("{text}\n  (the simulated rig patches itself)"));
+                self.operator
+                    .tell(&format!("{text}\n  (the simulated rig patches itself)"));
             }
         } else if let Some(cmd) = &self.opt.switch_command {
             self.operator.tell(&text);
@@ -528,7 +560,11 @@ impl Session<'_> {
 
     /// Record `step` into its part file and check it; after a (re)patch,
     /// a quiet check comes first. The inner error is a failed attempt.
-    fn record(&mut self, step: &Step, repatched: bool) -> Result<Result<Map<String, Value>, String>, SessionError> {
+    fn record(
+        &mut self,
+        step: &Step,
+        repatched: bool,
+    ) -> Result<Result<Map<String, Value>, String>, SessionError> {
         let (plan, opt) = (self.plan, self.opt);
         let p = &plan.procedure;
         let part = self.folder.dir.join(format!("{}.part", step.file));
@@ -539,12 +575,24 @@ impl Session<'_> {
             let quiet = level - super::QUIET_CHECK_DB;
             let probe = plan.quiet_stimulus(f);
             let frames = self.pre + probe.len() + self.post;
-            let r = capture_and_check(plan, self.rig, step, &part, Some(&probe), frames, quiet, opt, self.cancel);
+            let r = capture_and_check(
+                plan,
+                self.rig,
+                step,
+                &part,
+                Some(&probe),
+                frames,
+                quiet,
+                opt,
+                self.cancel,
+            );
             let _ = std::fs::remove_file(&part);
             if let Err(why) = r.map_err(|e| self.stopped(e))? {
                 return Ok(Err(format!("quiet check at {quiet:.1} dBFS: {why}")));
             }
-            self.operator.tell(&format!("  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"));
+            self.operator.tell(&format!(
+                "  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"
+            ));
         }
         let stim = match (p.stimulus.source, step.drive) {
             (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
@@ -554,7 +602,17 @@ impl Session<'_> {
             Some(_) => self.pre + plan.stimulus_frames() + self.post,
             None => p.idle.record_samples as usize,
         };
-        let r = capture_and_check(plan, self.rig, step, &part, stim.as_deref(), frames, level, opt, self.cancel);
+        let r = capture_and_check(
+            plan,
+            self.rig,
+            step,
+            &part,
+            stim.as_deref(),
+            frames,
+            level,
+            opt,
+            self.cancel,
+        );
         let r = r.map_err(|e| self.stopped(e))?;
         if r.is_err() {
             let _ = std::fs::remove_file(&part);
@@ -563,7 +621,12 @@ impl Session<'_> {
     }
 
     /// Move a checked capture into place and list it in run.json.
-    fn keep(&mut self, step: &Step, attempt: u32, mut extra: Map<String, Value>) -> Result<(), SessionError> {
+    fn keep(
+        &mut self,
+        step: &Step,
+        attempt: u32,
+        mut extra: Map<String, Value>,
+    ) -> Result<(), SessionError> {
         let part = self.folder.dir.join(format!("{}.part", step.file));
         let dst = self.folder.dir.join(&step.file);
         std::fs::rename(&part, &dst).map_err(|e| io(&dst, e))?;
@@ -582,7 +645,8 @@ impl Session<'_> {
         self.folder.done.insert(step.index, entry);
         self.folder.save(self.plan, &self.desc)?;
         let (n, total) = (self.folder.done.len(), self.total());
-        self.operator.tell(&format!("  captured {} ({n}/{total})", step.file));
+        self.operator
+            .tell(&format!("  captured {} ({n}/{total})", step.file));
         Ok(())
     }
 
@@ -602,7 +666,10 @@ impl Session<'_> {
                     return Ok(attempt - 1);
                 }
                 Err(why) => {
-                    self.operator.tell(&format!("  step {} attempt {attempt} failed: {why}", step.index));
+                    self.operator.tell(&format!(
+                        "  step {} attempt {attempt} failed: {why}",
+                        step.index
+                    ));
                     if attempt > retries {
                         return Err(SessionError::StepFailed {
                             step: step.index,
@@ -623,12 +690,17 @@ impl Session<'_> {
         let (resumed, total) = (self.folder.done.len(), self.total());
         self.operator.tell(&format!("rig: {}", self.desc));
         if resumed > 0 {
-            self.operator.tell(&format!("resuming: {resumed} of {total} capture(s) already finished"));
+            self.operator.tell(&format!(
+                "resuming: {resumed} of {total} capture(s) already finished"
+            ));
         }
         let secs: f64 = todo
             .iter()
             .map(|s| match s.drive {
-                Some(_) => super::seconds((self.pre + self.plan.stimulus_frames() + self.post) as u64, fs),
+                Some(_) => super::seconds(
+                    (self.pre + self.plan.stimulus_frames() + self.post) as u64,
+                    fs,
+                ),
                 None => super::seconds(self.plan.procedure.idle.record_samples, fs),
             })
             .sum();
@@ -677,7 +749,8 @@ pub fn run(
     for step in &todo {
         retries += s.step(step)? as usize;
     }
-    s.rig.self_patch(plan.procedure.stimulus.output as usize - 1, None);
+    s.rig
+        .self_patch(plan.procedure.stimulus.output as usize - 1, None);
     s.folder.save(plan, &s.desc)?;
     Ok(Outcome {
         recorded: todo.len(),
