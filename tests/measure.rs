@@ -409,7 +409,7 @@ fn bad_procedures_are_refused_before_anything_happens() {
         ),
         (
             &[("record_samples = 65536     # steady", "# record_samples")],
-            "key `stimulus.record_samples`: missing",
+            "line 34: key `stimulus.record_samples`: missing",
         ),
         (
             &[("number = 7", "number = 12")],

@@ -259,7 +259,7 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
             println!("{t}");
         }
         println!(
-            "{} capture(s): {} input(s) driven at {} frequencies, record {} samples ({:.2} s) per capture",
+            "{} capture(s): {} input(s) driven at {} frequency(ies), record {} samples ({:.2} s) per capture",
             plan.steps.len(),
             plan.steps.iter().filter(|s| s.drive.is_some()).count() / plan.frequencies_hz.len().max(1),
             plan.frequencies_hz.len(),

@@ -259,6 +259,18 @@ fn key_line(text: &str, table: &str, nth: usize, key: &str) -> Option<usize> {
     None
 }
 
+/// Line (from 1) of the `nth` header of `[table]` or `[[table]]`.
+fn table_line(text: &str, table: &str, nth: usize) -> Option<usize> {
+    text.lines()
+        .enumerate()
+        .filter(|(_, l)| {
+            let t = l.trim();
+            t.starts_with('[') && t.trim_matches(|c| c == '[' || c == ']').trim() == table
+        })
+        .nth(nth)
+        .map(|(i, _)| i + 1)
+}
+
 /// The key named on the line where a TOML error points.
 fn key_on_line(text: &str, offset: usize) -> Option<String> {
     let start = text[..offset].rfind('\n').map_or(0, |i| i + 1);
@@ -320,7 +332,9 @@ impl Plan {
             invalid(format!("{place}{msg}"))
         })?;
         let plan = Self::build(procedure, text).map_err(|(table, nth, key, msg)| {
+            // An absent key is reported at its table's header.
             let line = key_line(text, table, nth, key)
+                .or_else(|| table_line(text, table, nth))
                 .map(|l| format!("line {l}: "))
                 .unwrap_or_default();
             let full = if table.is_empty() {
