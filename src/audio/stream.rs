@@ -16,6 +16,8 @@ struct Stats {
     overflows: AtomicU64,
     xruns: AtomicU64,
     fatal: AtomicU64,
+    /// What the last fatal error was (see [`fatal_text`]).
+    fatal_kind: AtomicU64,
     stimuli_done: AtomicU64,
     flush: AtomicBool,
 }
@@ -71,9 +73,26 @@ fn error_callback(stats: Arc<Stats>) -> impl FnMut(cpal::Error) + Send + 'static
         cpal::ErrorKind::Xrun => {
             stats.xruns.fetch_add(1, Ordering::Relaxed);
         }
-        _ => {
+        // Not fatal: the stream goes on without real-time priority.
+        cpal::ErrorKind::RealtimeDenied => {}
+        kind => {
+            let code = match kind {
+                cpal::ErrorKind::DeviceNotAvailable => 1,
+                cpal::ErrorKind::StreamInvalidated => 2,
+                _ => 9,
+            };
+            stats.fatal_kind.store(code, Ordering::Relaxed);
             stats.fatal.fetch_add(1, Ordering::Relaxed);
         }
+    }
+}
+
+/// Words for a fatal error code stored by the error callback.
+fn fatal_text(code: u64) -> &'static str {
+    match code {
+        1 => "the audio device became unavailable (unplugged, switched off, or the audio server stopped)",
+        2 => "the audio stream was invalidated (the device or server changed its configuration)",
+        _ => "the audio device reported an error and stopped",
     }
 }
 
@@ -213,7 +232,7 @@ impl CpalRig {
         }
     }
 
-    fn counters(&self) -> [u64; 5] {
+    fn counters(&self) -> [u64; 6] {
         counters(&self.stats)
     }
 
@@ -313,22 +332,21 @@ impl CpalRig {
     }
 }
 
-fn counters(s: &Stats) -> [u64; 5] {
+fn counters(s: &Stats) -> [u64; 6] {
     [
         s.frames_in.load(Ordering::Relaxed),
         s.overflows.load(Ordering::Relaxed),
         s.xruns.load(Ordering::Relaxed),
         s.fatal.load(Ordering::Relaxed),
         s.stimuli_done.load(Ordering::Relaxed),
+        s.fatal_kind.load(Ordering::Relaxed),
     ]
 }
 
 /// Compare counters taken before and during a capture.
-fn lost(start: &[u64; 5], now: &[u64; 5]) -> Result<(), AudioError> {
+fn lost(start: &[u64; 6], now: &[u64; 6]) -> Result<(), AudioError> {
     if now[3] > start[3] {
-        return Err(AudioError::Device(
-            "the device reported an error and stopped".into(),
-        ));
+        return Err(AudioError::Device(fatal_text(now[5]).into()));
     }
     if now[1] > start[1] {
         return Err(AudioError::Lost(format!(

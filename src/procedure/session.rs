@@ -37,8 +37,13 @@ pub enum SessionError {
     #[error(transparent)]
     Run(#[from] RunError),
     /// The audio device failed.
-    #[error(transparent)]
-    Audio(AudioError),
+    #[error("{source}; {kept} finished capture(s) kept, continue with --resume once it is fixed")]
+    Audio {
+        /// What the device did.
+        source: AudioError,
+        /// Captures finished and recorded.
+        kept: usize,
+    },
     /// The rig, the run folder or the options do not fit the procedure.
     #[error("{0}")]
     Setup(String),
@@ -452,6 +457,7 @@ fn check(
 fn stop(e: SessionError, kept: usize, total: usize) -> SessionError {
     match e {
         SessionError::Stopped { .. } => SessionError::Stopped { kept, total },
+        SessionError::Audio { source, .. } => SessionError::Audio { source, kept },
         e => e,
     }
 }
@@ -497,7 +503,7 @@ fn capture_and_check(
         Err(AudioError::Lost(m)) => Ok(Err(format!("capture lost data: {m}"))),
         Err(e) => {
             let _ = std::fs::remove_file(part);
-            Err(SessionError::Audio(e))
+            Err(SessionError::Audio { source: e, kept: 0 })
         }
     }
 }
