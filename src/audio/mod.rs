@@ -50,7 +50,7 @@ pub struct CaptureRequest<'a> {
     pub stimulus: Option<&'a [f32]>,
     /// Output channel that plays it, from 0.
     pub output: usize,
-    /// Captured frames before the stimulus is handed to the output.
+    /// Frames of silence the output plays (on its own clock) before the stimulus.
     pub pre_roll: usize,
     /// Frames to capture in all.
     pub frames: usize,

@@ -182,6 +182,11 @@ impl SimDevice {
                 .as_ref()
                 .is_some_and(|(_, _, on)| on.load(Ordering::Relaxed));
             if !in_on {
+                // Idle between captures: wake rarely, and restart the clock
+                // when streaming resumes.
+                drop(e);
+                std::thread::sleep(Duration::from_millis(2));
+                next = Instant::now();
                 continue;
             }
             let t = self.now();

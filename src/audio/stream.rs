@@ -19,7 +19,8 @@ struct Stats {
     /// What the last fatal error was (see [`fatal_text`]).
     fatal_kind: AtomicU64,
     stimuli_done: AtomicU64,
-    flush: AtomicBool,
+    /// Number of the capture under way; stimuli of earlier ones are dropped.
+    generation: AtomicU64,
 }
 
 /// A stimulus in flight: handed to the output callback through a ring and
@@ -27,7 +28,10 @@ struct Stats {
 struct Stimulus {
     samples: Vec<f32>,
     channel: usize,
+    /// Frames of silence still to play before the first sample.
+    delay: usize,
     pos: usize,
+    generation: u64,
 }
 
 /// How to open a [`CpalRig`].
@@ -153,20 +157,28 @@ impl CpalRig {
                         out_cfg,
                         move |data: &mut [f32], _: &cpal::OutputCallbackInfo| {
                             data.fill(0.0);
-                            if s.flush.swap(false, Ordering::Relaxed) {
-                                // Hand back whatever an aborted capture left behind.
-                                if let Some(b) = current.take() {
-                                    let _ = done_tx.push(b);
+                            // Hand back whatever an aborted capture left behind.
+                            let generation = s.generation.load(Ordering::Relaxed);
+                            loop {
+                                if current.is_none() {
+                                    current = cmd_rx.pop().ok();
                                 }
-                                while let Ok(b) = cmd_rx.pop() {
-                                    let _ = done_tx.push(b);
+                                match current.take() {
+                                    Some(b) if b.generation != generation => {
+                                        let _ = done_tx.push(b);
+                                    }
+                                    other => {
+                                        current = other;
+                                        break;
+                                    }
                                 }
-                            }
-                            if current.is_none() {
-                                current = cmd_rx.pop().ok();
                             }
                             let Some(st) = current.as_mut() else { return };
                             for frame in data.chunks_exact_mut(och) {
+                                if st.delay > 0 {
+                                    st.delay -= 1;
+                                    continue;
+                                }
                                 if st.pos >= st.samples.len() {
                                     break;
                                 }
@@ -253,7 +265,7 @@ impl CpalRig {
         );
         let consumed = AtomicUsize::new(0);
         let stop = AtomicBool::new(false);
-        let (ring, cmd, stats) = (&mut self.ring, &mut self.cmd, &self.stats);
+        let (ring, stats) = (&mut self.ring, &self.stats);
         let frames = req.frames;
         std::thread::scope(|scope| {
             let writer = scope.spawn(|| -> Result<(), AudioError> {
@@ -273,7 +285,6 @@ impl CpalRig {
                 }
                 Ok(())
             });
-            let mut sent = req.stimulus.is_none();
             let watch = loop {
                 let now = counters(stats);
                 if let Err(e) = lost(&start, &now) {
@@ -291,19 +302,6 @@ impl CpalRig {
                         "the device delivered {got} of {frames} frames in {:.1} s",
                         t0.elapsed().as_secs_f64()
                     )));
-                }
-                if !sent && got >= req.pre_roll {
-                    let st = Box::new(Stimulus {
-                        samples: req.stimulus.unwrap_or_default().to_vec(),
-                        channel: req.output,
-                        pos: 0,
-                    });
-                    if cmd.push(st).is_err() {
-                        break Err(AudioError::Device(
-                            "the output did not take the stimulus".into(),
-                        ));
-                    }
-                    sent = true;
                 }
                 std::thread::sleep(Duration::from_millis(1));
             };
@@ -489,7 +487,24 @@ impl Rig for CpalRig {
             )));
         }
         while self.done.pop().is_ok() {}
-        self.stats.flush.store(true, Ordering::Relaxed);
+        // Stimuli of earlier (aborted) captures are dropped by the callback;
+        // this one starts after `pre_roll` frames of the output's own clock,
+        // however late this thread runs.
+        let generation = self.stats.generation.fetch_add(1, Ordering::Relaxed) + 1;
+        if let Some(samples) = req.stimulus {
+            let st = Box::new(Stimulus {
+                samples: samples.to_vec(),
+                channel: req.output,
+                delay: req.pre_roll,
+                pos: 0,
+                generation,
+            });
+            if self.cmd.push(st).is_err() {
+                return Err(AudioError::Device(
+                    "the output did not take the stimulus".into(),
+                ));
+            }
+        }
         self.drain();
         let mut sink = WavSink::create(req, self.inputs, self.rate)?;
         let t0 = Instant::now();
