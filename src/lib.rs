@@ -30,8 +30,10 @@
 #![warn(missing_docs)]
 
 pub mod analysis;
+pub mod audio;
 pub mod dsp;
 pub mod model;
+pub mod procedure;
 pub mod report;
 pub mod run;
 pub mod verdict;

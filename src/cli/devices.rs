@@ -4,7 +4,8 @@ use anyhow::Result;
 use cpal::traits::{DeviceTrait, HostTrait};
 use std::collections::BTreeSet;
 
-/// List audio hosts and devices with channel counts, sample formats and rates.
+/// List audio hosts and devices with channel counts, sample formats and
+/// rates, and the ports of a running JACK server.
 #[derive(Debug, clap::Args)]
 pub struct Args {}
 
@@ -85,6 +86,16 @@ pub fn run(_args: Args) -> Result<u8> {
                 .for_each(|c| caps.add(&c));
             if let Some(l) = caps.line() {
                 println!("    outputs: {l}");
+            }
+        }
+    }
+    if !jack_empty {
+        if let Ok(ports) =
+            septum::audio::jack::Connector::list(&format!("septum{}_list", std::process::id()))
+        {
+            println!("JACK ports (for --jack-output-ports and --jack-input-ports):");
+            for p in ports {
+                println!("  {p}");
             }
         }
     }

@@ -5,6 +5,7 @@ mod analyze;
 mod check;
 mod demo;
 mod devices;
+mod measure;
 mod progress;
 mod report;
 mod simulate;
@@ -60,6 +61,7 @@ enum Command {
     Simulate(simulate::Args),
     Demo(demo::Args),
     Devices(devices::Args),
+    Measure(measure::Args),
 }
 
 /// Run the command line and return the process exit code.
@@ -82,6 +84,7 @@ pub fn main() -> ExitCode {
         Command::Simulate(a) => simulate::run(a),
         Command::Demo(a) => demo::run(a),
         Command::Devices(a) => devices::run(a),
+        Command::Measure(a) => measure::run(a),
     };
     match result {
         Ok(code) => ExitCode::from(code),
@@ -156,6 +159,45 @@ mod tests {
             "-1"
         ])
         .is_err());
+        Cli::try_parse_from([
+            "septum",
+            "measure",
+            "--procedure",
+            "p.toml",
+            "--out",
+            "run",
+            "--host",
+            "jack",
+            "--jack-output-ports",
+            "a:in",
+            "--jack-input-ports",
+            "b:out_1,b:out_2",
+            "--switch-command",
+            "true",
+            "--resume",
+        ])
+        .unwrap();
+        Cli::try_parse_from([
+            "septum",
+            "measure",
+            "--procedure",
+            "p",
+            "--out",
+            "r",
+            "--simulated",
+        ])
+        .unwrap();
+        Cli::try_parse_from([
+            "septum",
+            "measure",
+            "--procedure",
+            "p",
+            "--out",
+            "r",
+            "--simulated=m.toml",
+        ])
+        .unwrap();
+        assert!(Cli::try_parse_from(["septum", "measure", "--out", "r"]).is_err());
         assert!(Cli::try_parse_from(["septum", "analyze", "run"]).is_err());
     }
 }

@@ -9,6 +9,7 @@
 //! explicit table ([`Resolved`]), drawn from the model's seed; synthesis and
 //! the expected figures both use that table and nothing else.
 
+pub mod stream;
 pub mod synth;
 pub mod truth;
 

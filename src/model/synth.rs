@@ -323,6 +323,17 @@ pub fn write_run(
 }
 
 fn write_model_files(r: &Resolved, model_text: &str, dir: &Path) -> Result<(), RunError> {
+    write_expected_files(r, model_text, dir, &expected_pairs(r))
+}
+
+/// Write `model.toml` (the text given), `resolved.json`, `expected-pairs.csv`
+/// (from `pairs`) and `expected-channels.csv` into `dir`, which must exist.
+pub fn write_expected_files(
+    r: &Resolved,
+    model_text: &str,
+    dir: &Path,
+    expected: &[super::truth::ExpectedPair],
+) -> Result<(), RunError> {
     let write = |name: &str, text: String| {
         let p = dir.join(name);
         std::fs::write(&p, text).map_err(|e| RunError::io(&p, e))
@@ -335,7 +346,7 @@ fn write_model_files(r: &Resolved, model_text: &str, dir: &Path) -> Result<(), R
     let mut pairs = String::from(
         "frequency_hz,aggressor,victim,separation_db,victim_dbfs,floor_limited,aggressor_dbfs,detection_limit_dbfs,tone_hz\n",
     );
-    for p in expected_pairs(r) {
+    for p in expected {
         pairs += &format!(
             "{},{},{},{:.6},{:.6},{},{:.6},{:.6},{:.6}\n",
             p.frequency_hz,

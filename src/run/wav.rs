@@ -109,9 +109,11 @@ pub fn read_capture_from<R: Read>(
         (hound::SampleFormat::Int, 16) => SampleCoding::I16,
         (hound::SampleFormat::Int, 24) => SampleCoding::I24,
         (hound::SampleFormat::Int, 32) => SampleCoding::I32,
-        (fmt, bits) => return Err(bad(format!(
+        (fmt, bits) => {
+            return Err(bad(format!(
             "sample format {bits}-bit {fmt:?} is not one of 16/24/32-bit integer or 32-bit float"
-        ))),
+        )))
+        }
     };
     // hound has read the header and stands at the first sample: read the
     // data in blocks and decode them straight into the channel vectors.
