@@ -272,8 +272,8 @@ fn prepare(septum: &Path, base: &str, s: &Size, root: &Path) -> Result<PathBuf, 
     Ok(run)
 }
 
-/// Wall time (s) and peak RSS (bytes) of one child process.
-fn timed_child(cmd: &mut Command) -> Result<(f64, u64), String> {
+/// Wall time (s), CPU time (user + system, s) and peak RSS (bytes) of one child process.
+fn timed_child(cmd: &mut Command) -> Result<(f64, f64, u64), String> {
     let t = Instant::now();
     let child = cmd
         .stdout(Stdio::null())
@@ -292,13 +292,16 @@ fn timed_child(cmd: &mut Command) -> Result<(f64, u64), String> {
     if !(libc::WIFEXITED(status) && libc::WEXITSTATUS(status) == 0) {
         return Err(format!("child failed, wait status {status}"));
     }
+    let secs = |t: libc::timeval| t.tv_sec as f64 + t.tv_usec as f64 * 1e-6;
+    let cpu = secs(usage.ru_utime) + secs(usage.ru_stime);
     // ru_maxrss is in KiB on Linux.
-    Ok((wall, usage.ru_maxrss as u64 * 1024))
+    Ok((wall, cpu, usage.ru_maxrss as u64 * 1024))
 }
 
 struct Measured {
     median_s: f64,
     best_s: f64,
+    cpu_s: f64,
     peak_rss: u64,
 }
 
@@ -314,16 +317,20 @@ fn measure_analyze(septum: &Path, run: &Path, res: &Path, repeats: usize) -> Res
     };
     timed_child(&mut cmd())?; // warm the page cache
     let mut times = Vec::new();
+    let mut cpus = Vec::new();
     let mut peak = 0;
     for _ in 0..repeats {
-        let (t, rss) = timed_child(&mut cmd())?;
+        let (t, cpu, rss) = timed_child(&mut cmd())?;
         times.push(t);
+        cpus.push(cpu);
         peak = peak.max(rss);
     }
     times.sort_by(f64::total_cmp);
+    cpus.sort_by(f64::total_cmp);
     Ok(Measured {
         median_s: times[times.len() / 2],
         best_s: times[0],
+        cpu_s: cpus[cpus.len() / 2],
         peak_rss: peak,
     })
 }
@@ -390,6 +397,13 @@ fn run_reference(python: &str, script: &Path, run: &Path, pairs: &Path) -> Resul
     let t = num_after("MB in ").ok_or(format!("cannot read the time in: {line}"))?;
     let d = num_after("difference ").ok_or(format!("cannot read the difference in: {line}"))?;
     Ok((t, d, line))
+}
+
+/// The 1, 5 and 15 minute load averages (other work on a shared machine slows every figure).
+fn load_average() -> String {
+    std::fs::read_to_string("/proc/loadavg")
+        .map(|l| l.split_whitespace().take(3).collect::<Vec<_>>().join(" "))
+        .unwrap_or_else(|_| "unknown".into())
 }
 
 fn mb(bytes: u64) -> f64 {
@@ -464,6 +478,7 @@ fn real_main() -> Result<(), String> {
     } else {
         None
     };
+    println!("load average at start: {}", load_average());
     println!(
         "septum analyze: {} timed runs after one warm-up, median wall time; peak RSS is the largest of them",
         o.repeats
@@ -473,8 +488,8 @@ fn real_main() -> Result<(), String> {
     let mut table = String::new();
     writeln!(
         table,
-        "{:<7} {:<33} {:>8} {:>9} {:>8} {:>9} {:>10} {:>9} {:>10} {:>9} {:>8} {:>9}",
-        "size", "run", "WAV MB", "time s", "best s", "MB/s", "capt/s", "RSS MB", "x bw bound",
+        "{:<7} {:<33} {:>8} {:>9} {:>8} {:>8} {:>9} {:>10} {:>9} {:>10} {:>9} {:>8} {:>9}",
+        "size", "run", "WAV MB", "time s", "best s", "CPU s", "MB/s", "capt/s", "RSS MB", "x bw bound",
         "numpy s", "speed-up", "worst dB"
     )
     .unwrap();
@@ -505,12 +520,13 @@ fn real_main() -> Result<(), String> {
         };
         writeln!(
             table,
-            "{:<7} {:<33} {:>8.1} {:>9.3} {:>8.3} {:>9.0} {:>10.1} {:>9.0} {:>10.1} {:>9} {:>8} {:>9}",
+            "{:<7} {:<33} {:>8.1} {:>9.3} {:>8.3} {:>8.2} {:>9.0} {:>10.1} {:>9.0} {:>10.1} {:>9} {:>8} {:>9}",
             s.name,
             s.label(),
             mb(bytes),
             m.median_s,
             m.best_s,
+            m.cpu_s,
             mb(bytes) / m.median_s,
             captures / m.median_s,
             mb(m.peak_rss),
@@ -528,7 +544,7 @@ fn real_main() -> Result<(), String> {
             let _ = std::fs::remove_dir_all(&res);
         }
     }
-    println!("(x bw bound: wall time over the time one read pass of the WAV bytes takes at {:.1} GB/s; worst dB: numpy's worst separation minus septum's)", bw / 1e9);
+    println!("(CPU s: user + system time of the child, median; x bw bound: wall time over the time one read pass of the WAV bytes takes at {:.1} GB/s; worst dB: numpy's worst separation minus septum's)", bw / 1e9);
     for n in notes {
         println!("  {n}");
     }
@@ -537,8 +553,8 @@ fn real_main() -> Result<(), String> {
         println!();
         println!("Growth with channels and record length (48 kHz, one capture per channel, median of {}):", o.repeats);
         println!(
-            "{:>8} {:>9} {:>8} {:>9} {:>9} {:>12} {:>14}",
-            "channels", "capture s", "WAV MB", "time s", "RSS MB", "ms per MB", "RSS / capture"
+            "{:>8} {:>9} {:>8} {:>9} {:>8} {:>9} {:>12} {:>14}",
+            "channels", "capture s", "WAV MB", "time s", "CPU s", "RSS MB", "ms per MB", "RSS / capture"
         );
         for ch in [8u32, 16, 32] {
             for secs in [1.0, 2.0] {
@@ -548,11 +564,12 @@ fn real_main() -> Result<(), String> {
                 let bytes = wav_bytes(&run);
                 let m = measure_analyze(&septum, &run, &res, o.repeats)?;
                 println!(
-                    "{:>8} {:>9} {:>8.1} {:>9.3} {:>9.0} {:>12.2} {:>13.2}x",
+                    "{:>8} {:>9} {:>8.1} {:>9.3} {:>8.2} {:>9.0} {:>12.2} {:>13.2}x",
                     ch,
                     secs,
                     mb(bytes),
                     m.median_s,
+                    m.cpu_s,
                     mb(m.peak_rss),
                     1e3 * m.median_s / mb(bytes),
                     m.peak_rss as f64 / (bytes as f64 / f64::from(ch))
@@ -565,5 +582,7 @@ fn real_main() -> Result<(), String> {
         }
         println!("(RSS / capture: peak RSS over the size of one capture's WAV)");
     }
+    println!();
+    println!("load average at end: {}", load_average());
     Ok(())
 }
