@@ -144,7 +144,9 @@ fn septum_binary() -> Result<PathBuf, String> {
     if release {
         cmd.arg("--release");
     } else {
-        eprintln!("bench: warning: not a release build; run with `cargo run --release --example bench`");
+        eprintln!(
+            "bench: warning: not a release build; run with `cargo run --release --example bench`"
+        );
     }
     let status = cmd.status().map_err(|e| format!("cargo build: {e}"))?;
     if !status.success() {
@@ -305,7 +307,12 @@ struct Measured {
     peak_rss: u64,
 }
 
-fn measure_analyze(septum: &Path, run: &Path, res: &Path, repeats: usize) -> Result<Measured, String> {
+fn measure_analyze(
+    septum: &Path,
+    run: &Path,
+    res: &Path,
+    repeats: usize,
+) -> Result<Measured, String> {
     let cmd = || {
         let mut c = Command::new(septum);
         c.arg("analyze")
@@ -384,9 +391,18 @@ fn find_python(explicit: Option<&str>, target: &Path) -> Option<String> {
 }
 
 /// Time (s) and worst-separation difference (dB) reported by reference.py.
-fn run_reference(python: &str, script: &Path, run: &Path, pairs: &Path) -> Result<(f64, f64, String), String> {
+fn run_reference(
+    python: &str,
+    script: &Path,
+    run: &Path,
+    pairs: &Path,
+) -> Result<(f64, f64, String), String> {
     let out = run_ok(
-        Command::new(python).arg(script).arg(run).arg("--pairs").arg(pairs),
+        Command::new(python)
+            .arg(script)
+            .arg(run)
+            .arg("--pairs")
+            .arg(pairs),
         "benches/reference.py",
     )?;
     let line = out.lines().last().unwrap_or("").to_string();
@@ -426,7 +442,10 @@ fn measure_bandwidth() -> Result<(f64, f64, usize), String> {
     let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
     let exe = std::env::current_exe().map_err(|e| e.to_string())?;
     let out = run_ok(Command::new(exe).arg(BANDWIDTH_CHILD), "bandwidth")?;
-    let v: Vec<f64> = out.split_whitespace().filter_map(|w| w.parse().ok()).collect();
+    let v: Vec<f64> = out
+        .split_whitespace()
+        .filter_map(|w| w.parse().ok())
+        .collect();
     match v[..] {
         [one, all] => Ok((one, all, cores)),
         _ => Err(format!("bandwidth child printed {out}")),
@@ -437,7 +456,11 @@ fn real_main() -> Result<(), String> {
     if std::env::args().nth(1).as_deref() == Some(BANDWIDTH_CHILD) {
         let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
         let buf = vec![1u64; (1usize << 30) / 8];
-        println!("{} {}", read_bandwidth(&buf, 1), read_bandwidth(&buf, cores));
+        println!(
+            "{} {}",
+            read_bandwidth(&buf, 1),
+            read_bandwidth(&buf, cores)
+        );
         return Ok(());
     }
     let o = parse_args()?;
@@ -456,8 +479,11 @@ fn real_main() -> Result<(), String> {
 
     // Machine figures.
     let (bw1, bw, cores) = measure_bandwidth()?;
-    let date = run_ok(Command::new("date").args(["-u", "+%Y-%m-%d %H:%M UTC"]), "date")
-        .unwrap_or_default();
+    let date = run_ok(
+        Command::new("date").args(["-u", "+%Y-%m-%d %H:%M UTC"]),
+        "date",
+    )
+    .unwrap_or_default();
     println!("septum bench, {}", date.trim());
     println!(
         "machine: {cores} cores; memory read bandwidth {:.1} GB/s on 1 thread, {:.1} GB/s on {cores} (1 GiB sum, best of 5)",
@@ -489,8 +515,19 @@ fn real_main() -> Result<(), String> {
     writeln!(
         table,
         "{:<7} {:<33} {:>8} {:>9} {:>8} {:>8} {:>9} {:>10} {:>9} {:>10} {:>9} {:>8} {:>9}",
-        "size", "run", "WAV MB", "time s", "best s", "CPU s", "MB/s", "capt/s", "RSS MB", "x bw bound",
-        "numpy s", "speed-up", "worst dB"
+        "size",
+        "run",
+        "WAV MB",
+        "time s",
+        "best s",
+        "CPU s",
+        "MB/s",
+        "capt/s",
+        "RSS MB",
+        "x bw bound",
+        "numpy s",
+        "speed-up",
+        "worst dB"
     )
     .unwrap();
     let mut notes = Vec::new();
@@ -554,7 +591,14 @@ fn real_main() -> Result<(), String> {
         println!("Growth with channels and record length (48 kHz, one capture per channel, median of {}):", o.repeats);
         println!(
             "{:>8} {:>9} {:>8} {:>9} {:>8} {:>9} {:>12} {:>14}",
-            "channels", "capture s", "WAV MB", "time s", "CPU s", "RSS MB", "ms per MB", "RSS / capture"
+            "channels",
+            "capture s",
+            "WAV MB",
+            "time s",
+            "CPU s",
+            "RSS MB",
+            "ms per MB",
+            "RSS / capture"
         );
         for ch in [8u32, 16, 32] {
             for secs in [1.0, 2.0] {

@@ -6,7 +6,6 @@ use crate::dsp::fit::{fit_tones, residual_into, ToneModel};
 use crate::dsp::level::{enob_from_nad, jitter_snr_db};
 use crate::dsp::window::{FLAT_TOP, HANN};
 use crate::dsp::{amplitude_to_dbfs, rms_to_dbfs};
-use realfft::RealFftPlanner;
 use serde::Serialize;
 use std::f64::consts::PI;
 
@@ -89,11 +88,12 @@ pub fn drive_quality(
 /// Peak amplitude of the largest line in `r` (Hann, sine-calibrated), away
 /// from DC and from the fitted tone's bin (`omega` in radians per sample).
 fn largest_line(r: &[f64], omega: f64) -> f64 {
+    let r = &r[..crate::dsp::plans::smooth_len(r.len())];
     let len = r.len();
     let w = HANN.cached(len);
     let s1: f64 = w.iter().sum();
     let mut buf: Vec<f64> = r.iter().zip(w.iter()).map(|(a, b)| a * b).collect();
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);
+    let fft = crate::dsp::plans::real_forward(len);
     let mut out = fft.make_output_vec();
     if fft.process(&mut buf, &mut out).is_err() {
         return 0.0;
@@ -116,7 +116,7 @@ pub fn out_of_band_peak(x: &[f32], sample_rate_hz: f64, edge_hz: f64) -> f64 {
     }
     let w = FLAT_TOP.cached(seg);
     let s1: f64 = w.iter().sum();
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(seg);
+    let fft = crate::dsp::plans::real_forward(seg);
     let mut buf = fft.make_input_vec();
     let mut out = fft.make_output_vec();
     let first_bin = (edge_hz / sample_rate_hz * seg as f64).ceil() as usize + 5;

@@ -9,7 +9,6 @@
 
 use super::linalg::Cholesky;
 use super::osc::{fill_harmonics, BLOCK};
-use realfft::RealFftPlanner;
 use std::f64::consts::PI;
 use thiserror::Error;
 
@@ -169,12 +168,10 @@ impl BasisBlock {
 
 use super::kernels::{dot, sum, widen};
 
-fn dot_f32(x: &[f32], b: &[f64]) -> f64 {
-    x.iter().zip(b).map(|(x, y)| f64::from(*x) * y).sum()
-}
-
-/// Gram matrix of the model's basis over `len` samples.
-fn gram(model: &ToneModel, len: usize) -> Vec<f64> {
+/// Gram matrix of the model's basis over `len` samples, summed sample by
+/// sample (the reference for [`gram`]).
+#[cfg_attr(not(test), allow(dead_code))]
+fn gram_summed(model: &ToneModel, len: usize) -> Vec<f64> {
     let p = model.params();
     let mut g = vec![0.0; p * p];
     let mut basis = BasisBlock::new(model.terms);
@@ -195,6 +192,42 @@ fn gram(model: &ToneModel, len: usize) -> Vec<f64> {
     for i in 0..p {
         for j in 0..i {
             g[i * p + j] = g[j * p + i];
+        }
+    }
+    g
+}
+
+/// `Σ_n cos(θ·(n − c))` over `n < len` with `c = (len − 1)/2`: the Dirichlet
+/// kernel `sin(len·θ/2)/sin(θ/2)` (the sine sums vanish by symmetry).
+fn dirichlet(theta: f64, len: usize) -> f64 {
+    let half = (0.5 * theta).sin();
+    if half.abs() < 1e-9 {
+        // θ at a multiple of 2π: every term is cos(θ·c).
+        let c = (len as f64 - 1.0) / 2.0;
+        return len as f64 * (theta * c).cos();
+    }
+    (0.5 * len as f64 * theta).sin() / half
+}
+
+/// Gram matrix of the model's basis over `len` samples, in closed form:
+/// with time centred on the record, cos·sin products sum to zero and the
+/// others are half-sums of Dirichlet kernels at the sum and difference
+/// frequencies.
+fn gram(model: &ToneModel, len: usize) -> Vec<f64> {
+    let p = model.params();
+    let w = model.omega;
+    let mut g = vec![0.0; p * p];
+    g[0] = len as f64;
+    for a in 1..=model.terms {
+        let (ca, sa) = (2 * a - 1, 2 * a);
+        g[ca] = dirichlet(a as f64 * w, len);
+        g[ca * p] = g[ca];
+        for b in 1..=model.terms {
+            let (cb, sb) = (2 * b - 1, 2 * b);
+            let diff = dirichlet((a as f64 - b as f64) * w, len);
+            let sum = dirichlet((a + b) as f64 * w, len);
+            g[ca * p + cb] = 0.5 * (diff + sum);
+            g[sa * p + sb] = 0.5 * (diff - sum);
         }
     }
     g
@@ -319,7 +352,7 @@ pub fn residual_pass(
             && kept.len() == channels.len()
     );
     let len = channels.first().map_or(0, |c| c.len());
-    let blocks = len / DECIMATION;
+    let blocks = super::plans::smooth_len(len / DECIMATION);
     let window = super::window::HANN.cached(blocks * DECIMATION);
     let energy = super::kernels::dot(&window, &window);
     let mut stats: Vec<ResidualStats> = channels
@@ -394,6 +427,7 @@ pub fn coarse_frequency(
     nominal_hz: f64,
     search: f64,
 ) -> Result<f64, FitError> {
+    let x = &x[..super::plans::smooth_len(x.len())];
     let len = x.len();
     let no_tone = FitError::NoTone {
         nominal_hz,
@@ -409,7 +443,7 @@ pub fn coarse_frequency(
         .zip(w.iter())
         .map(|(v, w)| (f64::from(*v) - mean) * w)
         .collect();
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);
+    let fft = super::plans::real_forward(len);
     let mut spectrum = fft.make_output_vec();
     fft.process(&mut input, &mut spectrum)
         .map_err(|_| no_tone.clone())?;
@@ -453,11 +487,24 @@ pub fn estimate_frequency(
     let mut model = ToneModel::new(f0, sample_rate_hz, len, max_harmonic);
     let scale = len as f64 / 2.0;
     let mut iterations = 0;
+    // The joint solve gives the tone's coefficients along with the step; they
+    // serve the next iteration's derivative column (one pass per iteration).
+    let mut fit = fit_tones(&[x], &model)?.remove(0);
     for _ in 0..30 {
         iterations += 1;
-        let fit = &fit_tones(&[x], &model)?[0];
-        let delta = gauss_newton_step(x, &model, fit, scale)?;
+        let (theta, delta) = gauss_newton_step(x, &model, &fit, scale)?;
         model.omega += delta;
+        fit.dc = theta[0];
+        fit.cos = theta[1..theta.len() - 1]
+            .iter()
+            .step_by(2)
+            .copied()
+            .collect();
+        fit.sin = theta[2..theta.len() - 1]
+            .iter()
+            .step_by(2)
+            .copied()
+            .collect();
         if (delta * len as f64).abs() < 1e-9 {
             break;
         }
@@ -483,45 +530,81 @@ fn gauss_newton_step(
     model: &ToneModel,
     fit: &ToneFit,
     scale: f64,
-) -> Result<f64, FitError> {
+) -> Result<(Vec<f64>, f64), FitError> {
     let len = x.len();
-    let p = model.params() + 1;
+    let q = model.params();
+    let p = q + 1;
+    // The basis block of the Gram matrix in closed form; only the column
+    // of the frequency derivative is summed.
+    let base = gram(model, len);
     let mut g = vec![0.0; p * p];
+    for r in 0..q {
+        g[r * p..r * p + q].copy_from_slice(&base[r * q..r * q + q]);
+    }
     let mut b = vec![0.0; p];
     let mut basis = BasisBlock::new(model.terms);
-    let mut col = vec![vec![0.0; BLOCK]; p];
+    let mut d = vec![0.0; BLOCK];
+    let mut xf = vec![0.0; BLOCK];
     let mut n0 = 0;
     while n0 < len {
         let m = BLOCK.min(len - n0);
         basis.fill(model, n0, m);
-        for i in 0..m {
-            let t = (n0 + i) as f64 - model.center;
-            col[0][i] = 1.0;
-            let mut d = 0.0;
-            for k in 0..model.terms {
-                let (c, s) = (basis.cos[k][i], basis.sin[k][i]);
-                col[1 + 2 * k][i] = c;
-                col[2 + 2 * k][i] = s;
-                d += (k + 1) as f64 * (-fit.cos[k] * s + fit.sin[k] * c);
-            }
-            col[p - 1][i] = d * t / scale;
-        }
-        let xs = &x[n0..n0 + m];
-        for r in 0..p {
-            b[r] += dot_f32(xs, &col[r][..m]);
-            for c in r..p {
-                g[r * p + c] += dot(&col[r][..m], &col[c][..m]);
+        let d = &mut d[..m];
+        d.fill(0.0);
+        for k in 0..model.terms {
+            let (a, bk) = ((k + 1) as f64 * -fit.cos[k], (k + 1) as f64 * fit.sin[k]);
+            for ((v, c), s) in d.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
+                *v += a * s + bk * c;
             }
         }
+        for (i, v) in d.iter_mut().enumerate() {
+            *v *= ((n0 + i) as f64 - model.center) / scale;
+        }
+        let xf = &mut xf[..m];
+        widen(&x[n0..n0 + m], xf);
+        b[0] += sum(xf);
+        g[q] += sum(d);
+        for r in 1..q {
+            let col = &basis.column(r).unwrap()[..m];
+            b[r] += dot(xf, col);
+            g[r * p + q] += dot(d, col);
+        }
+        b[q] += dot(xf, d);
+        g[q * p + q] += dot(d, d);
         n0 += m;
     }
-    for r in 0..p {
-        for c in 0..r {
-            g[r * p + c] = g[c * p + r];
-        }
+    for r in 0..q {
+        g[q * p + r] = g[r * p + q];
     }
     let chol = Cholesky::new(&g, p).ok_or(FitError::Degenerate {
         freq_hz: model.omega / (2.0 * PI),
     })?;
-    Ok(chol.solve(&b)[p - 1] / scale)
+    let theta = chol.solve(&b);
+    let delta = theta[p - 1] / scale;
+    Ok((theta, delta))
+}
+
+#[cfg(test)]
+mod gram_tests {
+    use super::*;
+
+    /// The closed form against the sample-by-sample sums.
+    #[test]
+    fn closed_form_gram_matches_the_sums() {
+        for (f, len) in [
+            (997.3, 4801usize),
+            (31.5, 96_000),
+            (15_999.0, 65_536),
+            (12_000.0, 48_000),
+        ] {
+            let m = ToneModel::new(f, 48_000.0, len, 5);
+            let (a, b) = (gram(&m, len), gram_summed(&m, len));
+            for (x, y) in a.iter().zip(&b) {
+                assert!(
+                    (x - y).abs() < 1e-7 * len as f64,
+                    "{f} Hz, {len}: {x} vs {y}"
+                );
+            }
+        }
+    }
 }

@@ -12,6 +12,7 @@ pub mod level;
 pub mod linalg;
 pub mod noise;
 pub mod osc;
+pub mod plans;
 pub mod psd;
 pub mod spectrum;
 pub mod weighting;

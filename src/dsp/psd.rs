@@ -2,7 +2,6 @@
 //! overlap), one-sided, optionally weighted.
 
 use super::window::HANN;
-use realfft::RealFftPlanner;
 
 /// Segment length of the Welch estimate (shorter records use one segment).
 pub const SEGMENT: usize = 8192;
@@ -28,7 +27,7 @@ pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
     let hop = seg / 2;
     let w = HANN.cached(seg);
     let s2: f64 = w.iter().map(|v| v * v).sum();
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(seg);
+    let fft = super::plans::real_forward(seg);
     let mut buf = fft.make_input_vec();
     let mut out = fft.make_output_vec();
     let mut psd = vec![0.0; out.len()];

@@ -4,7 +4,6 @@
 //! condensed onto log-spaced frequency buckets.
 
 use super::window::BLACKMAN_HARRIS_7;
-use realfft::RealFftPlanner;
 use serde::Serialize;
 
 /// A condensed spectrum.
@@ -24,6 +23,7 @@ pub struct Spectrum {
 /// from the first bin to the Nyquist frequency. `None` for records under 64
 /// samples.
 pub fn log_spectrum(x: &[f32], sample_rate_hz: f64, buckets: usize) -> Option<Spectrum> {
+    let x = &x[..super::plans::smooth_len(x.len())];
     let len = x.len();
     if len < 64 || buckets == 0 {
         return None;
@@ -37,7 +37,7 @@ pub fn log_spectrum(x: &[f32], sample_rate_hz: f64, buckets: usize) -> Option<Sp
         .zip(w.iter())
         .map(|(v, w)| (f64::from(*v) - mean) * w)
         .collect();
-    let fft = RealFftPlanner::<f64>::new().plan_fft_forward(len);
+    let fft = super::plans::real_forward(len);
     let mut out = fft.make_output_vec();
     fft.process(&mut input, &mut out).ok()?;
     let bin_hz = sample_rate_hz / len as f64;
