@@ -173,3 +173,45 @@ fn refusals_keep_the_earlier_report() {
     assert!(e.contains("missing"), "{e}");
     assert!(!w.path("x.html").exists());
 }
+
+/// The other figures of the same captures reach the report when the results
+/// folder holds them: band and A-weighted floors, the driven channel, the
+/// coupling mechanism, the common-drive step.
+#[test]
+fn report_shows_the_other_figures() {
+    let w = Workdir::new();
+    let m = w.model(
+        "m.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [125.0, 1000.0, 8000.0]",
+            ),
+            ("record_samples = 65536", "record_samples = 16384"),
+            ("idle_samples = 65536", "idle_samples = 16384"),
+        ],
+    );
+    w.ok(&[
+        "simulate",
+        "-q",
+        "--out",
+        "run",
+        "--model",
+        m.to_str().unwrap(),
+    ]);
+    w.ok(&["analyze", "-q", "run", "--out", "res"]);
+    w.ok(&["report", "res", "--out", "r.html"]);
+    let html = std::fs::read_to_string(w.path("r.html")).unwrap();
+    for needle in [
+        "More figures from the same captures",
+        "drive.csv",
+        "sinad db",
+        "coupling-matrix.csv",
+        "capacitive-or-inductive",
+        "common-drive.csv",
+        "skew us",
+        "noise a weighted 20Hz 20kHz dbfs",
+    ] {
+        assert!(html.contains(needle), "report lacks {needle:?}");
+    }
+}

@@ -57,6 +57,7 @@ pub fn render(input: &ReportInput) -> Result<String, RunError> {
     body += &sections::separation(r, input.limits);
     body += &sections::floors(r, input.verdict);
     body += &sections::spectra(r)?;
+    body += &sections::more_figures(r);
     body += &sections::warnings(r);
     body += &sections::footer(r);
     Ok(format!(

@@ -581,6 +581,45 @@ pub fn spectra(r: &ResultsFolder) -> Result<String, RunError> {
     Ok(s)
 }
 
+/// The other figures of the same captures, as the results folder holds them.
+pub fn more_figures(r: &ResultsFolder) -> String {
+    if r.extra.is_empty() {
+        return String::new();
+    }
+    let mut s =
+        String::from(r#"<section id="more-figures"><h2>More figures from the same captures</h2>"#);
+    for t in &r.extra {
+        let caption = match t.file.as_str() {
+            "channels.csv" => "Noise over the usable band and A-weighted (IEC 61672-1), with dynamic range: a full-scale sine over that noise, dB",
+            "drive.csv" => "The driven channel of every capture: level (dBFS), SINAD, THD (harmonics 2 to the count given), SFDR (dB), ENOB (bits, IEEE Std 1241 form) and the stimulus clock against the converter's (ppm)",
+            "coupling-matrix.csv" => "Dominant coupling per pair (rows: aggressor, columns: victim): rising about 20 dB per decade (capacitive or inductive; measuring again with the victims open tells them apart), flat (a shared impedance) or mixed",
+            "common-drive.csv" => "One signal to every input: gain (dB), phase (°) and sampling skew (µs) against the reference channel, with expanded uncertainties",
+            _ => "",
+        };
+        let _ = write!(
+            s,
+            "<h3>{}</h3><p class=\"note\">{} ({})</p><table class=\"data\"><thead><tr>",
+            esc(&t.file),
+            esc(caption),
+            esc(&t.file)
+        );
+        for h in &t.header {
+            let _ = write!(s, "<th>{}</th>", esc(&h.replace('_', " ")));
+        }
+        s += "</tr></thead><tbody>";
+        for row in &t.rows {
+            s += "<tr>";
+            for v in row {
+                let _ = write!(s, "<td>{}</td>", esc(v));
+            }
+            s += "</tr>";
+        }
+        s += "</tbody></table>";
+    }
+    s += "</section>\n";
+    s
+}
+
 pub fn warnings(r: &ResultsFolder) -> String {
     let mut s = String::from(r#"<section id="warnings"><h2>Warnings from the analysis</h2>"#);
     if r.warnings.is_empty() {

@@ -122,6 +122,55 @@ pub struct ResultsFolder {
     pub spectra: Vec<SpectrumRef>,
     /// summary.json `warnings`.
     pub warnings: Vec<WarningRow>,
+    /// The optional figure tables, as text, when present: `drive.csv`,
+    /// `coupling-matrix.csv`, `common-drive.csv`, and the band-limited
+    /// columns of channels.csv.
+    pub extra: Vec<TextTable>,
+}
+
+/// A CSV file kept as text, for display.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct TextTable {
+    /// The file name (`drive.csv`).
+    pub file: String,
+    /// Column names.
+    pub header: Vec<String>,
+    /// Rows of fields.
+    pub rows: Vec<Vec<String>>,
+}
+
+/// Read `dir/file` as a text table, if it exists; a malformed file is an error.
+fn text_table(
+    dir: &Path,
+    file: &str,
+    keep: impl Fn(&str) -> bool,
+) -> Result<Option<TextTable>, RunError> {
+    let path = dir.join(file);
+    if !path.exists() {
+        return Ok(None);
+    }
+    let mut r = csv::Reader::from_path(&path).map_err(|e| bad(&path, e.to_string()))?;
+    let header: Vec<String> = r
+        .headers()
+        .map_err(|e| bad(&path, e.to_string()))?
+        .iter()
+        .map(String::from)
+        .collect();
+    let cols: Vec<usize> = (0..header.len()).filter(|i| keep(&header[*i])).collect();
+    let mut rows = Vec::new();
+    for rec in r.records() {
+        let rec = rec.map_err(|e| bad(&path, e.to_string()))?;
+        rows.push(
+            cols.iter()
+                .map(|i| rec.get(*i).unwrap_or("").to_string())
+                .collect(),
+        );
+    }
+    Ok(Some(TextTable {
+        file: file.to_string(),
+        header: cols.iter().map(|i| header[*i].clone()).collect(),
+        rows,
+    }))
 }
 
 fn bad(path: &Path, message: impl Into<String>) -> RunError {
@@ -376,6 +425,23 @@ impl ResultsFolder {
             generator: summary.generator,
             drive_levels_dbfs,
             spectra: summary.spectra,
+            extra: [
+                text_table(dir, "channels.csv", |h| {
+                    h == "channel"
+                        || h.starts_with("noise_0Hz_")
+                        || h.starts_with("noise_a_weighted")
+                        || h.starts_with("dynamic_range")
+                })?,
+                text_table(dir, "drive.csv", |h| h != "tone_hz" && h != "jitter_snr_db")?,
+                text_table(dir, "coupling-matrix.csv", |_| true)?,
+                text_table(dir, "common-drive.csv", |h| {
+                    h != "capture" && h != "tone_hz"
+                })?,
+            ]
+            .into_iter()
+            .flatten()
+            .filter(|t| t.header.len() > 1)
+            .collect(),
             warnings: summary.warnings,
         })
     }
