@@ -598,6 +598,48 @@ fn simulated_common_drive_recovers_the_gains() {
     assert!(spread > 0.02, "{spread}");
 }
 
+/// A switch command is told `SEPTUM_AGGRESSOR=all` for a common drive.
+#[test]
+fn switch_command_sees_all_for_the_common_drive() {
+    let w = Workdir::new();
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [2]"),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 8192     # one",
+            ),
+        ],
+    );
+    // --sim-ask: the simulated bench follows, but septum does not know it
+    // and runs the switch command as on a relay-switched rig.
+    w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--sim-ask",
+        "-q",
+        "--switch-command",
+        "echo \"$SEPTUM_AGGRESSOR $SEPTUM_LEVEL_DBFS $SEPTUM_FREQUENCY_HZ\" >> switch.log",
+    ]);
+    let log = std::fs::read_to_string(w.path("switch.log")).unwrap();
+    assert_eq!(log, "2 -1 1013.671875\nall -6 997\n0 -1 0\n");
+    assert_eq!(manifest(&w.path("run"))["common_drive"][0]["attempts"], 1);
+}
+
 #[test]
 fn shipped_procedures_are_valid() {
     for name in ["commissioning", "periodic", "quick"] {

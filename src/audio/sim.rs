@@ -1,6 +1,7 @@
 //! The simulated front end as a cpal custom host: one device with as many
 //! outputs as inputs, whose "hardware" thread plays the output block, routes
-//! the patched output (or a simulated external generator) to one input,
+//! the patched output (or a simulated external generator) to one input (or,
+//! for a common drive, to every input),
 //! runs the front-end model's [`StreamProcessor`] and delivers the input
 //! block. The clock may run faster than real time.
 

@@ -281,6 +281,14 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
             plan.record_samples,
             seconds(plan.record_samples, fs)
         );
+        if let Some(c) = &plan.procedure.common_drive {
+            println!(
+                "  including {} common-drive capture(s) at {:.1} dBFS on every input, reference input {}",
+                c.frequencies_hz.len(),
+                c.level_dbfs,
+                c.reference_input
+            );
+        }
         if let Some(floor) = st.expected_floor_dbfs {
             println!(
                 "  detection limit about {:.1} dBFS over a floor of {floor:.1} dBFS",
