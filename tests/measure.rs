@@ -287,11 +287,19 @@ fn killed_measurement_resumes_without_loss_or_duplicates() {
         "--resume",
     ]);
     assert!(
-        out.contains(&format!("resuming: {} of 17", before.len())),
+        // 16 drive captures, the common drive and the idle capture.
+        out.contains(&format!("resuming: {} of 18", before.len())),
         "{out}"
     );
     let after = capture_files(&run);
     assert_eq!(after.len(), 17);
+    let m = manifest(&run);
+    assert_eq!(m["measure"]["complete"], true);
+    assert_eq!(m["common_drive"].as_array().unwrap().len(), 1);
+    assert_eq!(
+        m["common_drive"][0]["file"],
+        "captures/017-common-997Hz.wav"
+    );
     assert_eq!(
         &after[..before.len()],
         &before[..],
@@ -305,7 +313,7 @@ fn killed_measurement_resumes_without_loss_or_duplicates() {
         .flatten()
         .map(|e| e.file_name().to_string_lossy().into_owned())
         .collect();
-    assert_eq!(on_disk.len(), 17, "no leftovers: {on_disk:?}");
+    assert_eq!(on_disk.len(), 18, "no leftovers: {on_disk:?}");
     assert_eq!(manifest(&run)["measure"]["complete"], true);
     w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
     let a = agreement(&run, &w.path("results"));
@@ -423,6 +431,22 @@ fn bad_procedures_are_refused_before_anything_happens() {
             &[("source = \"output\"", "source = \"speaker\"")],
             "line 35: key `source`: unknown variant `speaker`",
         ),
+        (
+            &[("level_dbfs = -6.0", "level_dbfs = -0.1")],
+            "line 60: key `common_drive.level_dbfs`: -0.1 must lie between -80 and -0.5 dBFS",
+        ),
+        (
+            &[("reference_input = 1", "reference_input = 9")],
+            "line 61: key `common_drive.reference_input`: 9 is not an input from 1 to 8",
+        ),
+        (
+            &[("frequencies_hz = [997.0]", "frequencies_hz = [30000.0]")],
+            "line 59: key `common_drive.frequencies_hz`: 30000 Hz must lie between",
+        ),
+        (
+            &[("reference_input = 1", "reference_inptu = 1")],
+            "line 61: unknown field `reference_inptu`",
+        ),
     ];
     for (i, (edits, want)) in cases.iter().enumerate() {
         let name = format!("bad{i}.toml");
@@ -480,6 +504,142 @@ fn bad_procedures_are_refused_before_anything_happens() {
     assert!(!w.path("run").exists());
 }
 
+/// The common-drive step: one signal split to every input. It is listed
+/// under run.json's `common_drive` (not `captures`), and the analysis
+/// recovers the simulated inputs' gain differences. The streaming model
+/// samples every input at the same instant, so the skew expected is zero.
+#[test]
+fn simulated_common_drive_recovers_the_gains() {
+    let w = Workdir::new();
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [3]"),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 16384     # steady",
+            ),
+            (
+                "frequencies_hz = [997.0]",
+                "frequencies_hz = [997.0, 3001.0]",
+            ),
+            ("reference_input = 1", "reference_input = 2"),
+        ],
+    );
+    // The device fails during the idle capture, the 6th (a quiet check
+    // comes first after each patch); the common drives are kept.
+    let args = [
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--yes",
+    ];
+    let err = w.fails(&[&args[..], &["--sim-fail-in-capture", "6"]].concat());
+    assert!(err.contains("3 finished capture(s) kept"), "{err}");
+    let m = manifest(&w.path("run"));
+    assert_eq!(m["measure"]["complete"], false);
+    assert_eq!(m["common_drive"].as_array().unwrap().len(), 2);
+    let out = w.ok(&[&args[..], &["--resume"]].concat());
+    assert!(out.contains("resuming: 3 of 4"), "{out}");
+    assert!(
+        out.contains("captured captures/004-idle.wav (4/4)"),
+        "{out}"
+    );
+    assert!(!out.contains("common drive at"), "not redone: {out}");
+    let m = manifest(&w.path("run"));
+    assert_eq!(m["measure"]["complete"], true);
+    assert_eq!(m["measure"]["steps_planned"], 4);
+    assert_eq!(
+        capture_files(&w.path("run")),
+        [
+            "captures/001-drive-ch3-993.164Hz.wav",
+            "captures/004-idle.wav"
+        ]
+    );
+    let common = m["common_drive"].as_array().unwrap();
+    assert_eq!(common.len(), 2);
+    assert_eq!(common[0]["file"], "captures/002-common-997Hz.wav");
+    assert_eq!(common[1]["file"], "captures/003-common-3001Hz.wav");
+    assert_eq!(common[0]["level_dbfs"], -6.0);
+    assert_eq!(common[0]["reference_channel"], 2);
+    assert!(w.path("run/captures/003-common-3001Hz.wav").is_file());
+    w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
+    let expected = read_csv(&w.path("run/model/expected-common.csv"));
+    let got = read_csv(&w.path("results/common-drive.csv"));
+    assert_eq!(expected.len(), 16);
+    assert_eq!(got.len(), 16);
+    let mut spread = 0.0f64;
+    for e in &expected {
+        let g = got
+            .iter()
+            .find(|g| {
+                num(g, "frequency_hz") == num(e, "frequency_hz") && g["channel"] == e["channel"]
+            })
+            .unwrap_or_else(|| panic!("no result for {e:?}"));
+        assert_eq!(g["reference"], "2");
+        let tol = 2.5 * num(g, "gain_u95_db") + 0.01;
+        let err = (num(g, "gain_db") - num(e, "gain_db")).abs();
+        assert!(err <= tol, "{e:?} vs {g:?}: off by {err} dB");
+        assert!(
+            num(g, "skew_us").abs() <= 2.5 * num(g, "skew_u95_us") + 0.01,
+            "{g:?}"
+        );
+        spread = spread.max(num(e, "gain_db").abs());
+    }
+    // The model's inputs really differ, so the comparison means something.
+    assert!(spread > 0.02, "{spread}");
+}
+
+/// A switch command is told `SEPTUM_AGGRESSOR=all` for a common drive.
+#[test]
+fn switch_command_sees_all_for_the_common_drive() {
+    let w = Workdir::new();
+    let p = procedure(
+        &w,
+        "p.toml",
+        &[
+            (
+                "preferred_hz = [125.0, 1000.0, 4000.0, 16000.0]",
+                "preferred_hz = [1000.0]",
+            ),
+            ("aggressors = [1, 2, 3, 4, 5, 6, 7, 8]", "aggressors = [2]"),
+            (
+                "record_samples = 65536     # steady",
+                "record_samples = 8192     # steady",
+            ),
+            (
+                "record_samples = 65536     # one",
+                "record_samples = 8192     # one",
+            ),
+        ],
+    );
+    // --sim-ask: the simulated bench follows, but septum does not know it
+    // and runs the switch command as on a relay-switched rig.
+    w.ok(&[
+        "measure",
+        "--procedure",
+        &p,
+        "--out",
+        "run",
+        "--simulated",
+        "--sim-ask",
+        "-q",
+        "--switch-command",
+        "echo \"$SEPTUM_AGGRESSOR $SEPTUM_LEVEL_DBFS $SEPTUM_FREQUENCY_HZ\" >> switch.log",
+    ]);
+    let log = std::fs::read_to_string(w.path("switch.log")).unwrap();
+    assert_eq!(log, "2 -1 1013.671875\nall -6 997\n0 -1 0\n");
+    assert_eq!(manifest(&w.path("run"))["common_drive"][0]["attempts"], 1);
+}
+
 #[test]
 fn shipped_procedures_are_valid() {
     for name in ["commissioning", "periodic", "quick"] {
@@ -506,6 +666,11 @@ fn external_generator_mode() {
     assert!(out.contains("Set the generator to 1006.348 Hz"), "{out}");
     assert!(!out.contains("quiet check"), "nothing is played: {out}");
     let m = manifest(&w.path("run"));
+    assert!(
+        out.contains("Split the generator, set to 997.000 Hz"),
+        "{out}"
+    );
+    assert_eq!(m["common_drive"].as_array().unwrap().len(), 1);
     let tone = m["captures"][0]["tone_hz"].as_f64().unwrap();
     assert!((tone / 1006.34765625 - 1.0 - 300e-6).abs() < 1e-6, "{tone}");
     w.ok(&["analyze", "--quiet", "run", "--out", "results"]);
@@ -637,12 +802,13 @@ fn guided_mode_waits_for_the_operator() {
         ],
     );
     let args = format!("measure --procedure {p} --out run --simulated --sim-ask -q");
-    let Some((code, text)) = on_terminal(&w, &args, "\n\n\n") else {
+    let Some((code, text)) = on_terminal(&w, &args, "\n\n\n\n") else {
         return;
     };
     assert_eq!(code, 0, "{text}");
-    // Two aggressors and the idle capture: three patches, three waits.
-    assert_eq!(text.matches("Press Enter when done").count(), 3, "{text}");
+    // Two aggressors, the common drive and the idle capture: four patches,
+    // four waits.
+    assert_eq!(text.matches("Press Enter when done").count(), 4, "{text}");
     assert!(
         text.find("Before the first tone") < text.find("Press Enter"),
         "{text}"
@@ -652,7 +818,7 @@ fn guided_mode_waits_for_the_operator() {
     let (code, text) = on_terminal(&w, &args, "\nq\n").unwrap();
     assert_eq!(code, 1, "{text}");
     assert!(
-        text.contains("stopped by the operator; 2 of 5 capture(s) finished and kept"),
+        text.contains("stopped by the operator; 2 of 6 capture(s) finished and kept"),
         "{text}"
     );
     assert_eq!(capture_files(&w.path("run2")).len(), 2);

@@ -104,4 +104,10 @@ pub trait Rig {
     fn self_generator(&mut self, _input: Option<usize>, _freq_hz: f64, _level_dbfs: f64) -> bool {
         false
     }
+    /// A rig that patches itself splits the stimulus output (`Some`), or
+    /// the simulated generator's tone of `(freq_hz, level_dbfs)` (`None`
+    /// output), to every input at once and returns true (common drive).
+    fn self_split(&mut self, _output: Option<usize>, _tone: (f64, f64)) -> bool {
+        false
+    }
 }

@@ -1,6 +1,7 @@
 //! The simulated front end as a cpal custom host: one device with as many
 //! outputs as inputs, whose "hardware" thread plays the output block, routes
-//! the patched output (or a simulated external generator) to one input,
+//! the patched output (or a simulated external generator) to one input (or,
+//! for a common drive, to every input),
 //! runs the front-end model's [`StreamProcessor`] and delivers the input
 //! block. The clock may run faster than real time.
 
@@ -49,6 +50,8 @@ struct Bench {
     output: AtomicUsize,
     /// Input (from 0) receiving the patched output or generator, or NONE.
     input: AtomicUsize,
+    /// Set: the output or generator is split to every input (common drive).
+    all: AtomicBool,
     /// External generator: frequency and peak amplitude (f64 bits); 0 = off.
     gen_hz: AtomicU64,
     gen_amp: AtomicU64,
@@ -211,17 +214,27 @@ impl SimDevice {
                 b.output.load(Ordering::Relaxed),
                 b.input.load(Ordering::Relaxed),
             );
-            if i != NONE && o < ch {
+            // One input, or every input through an ideal splitter.
+            let all = b.all.load(Ordering::Relaxed);
+            let fed = if all {
+                0..ch
+            } else if i != NONE {
+                i..i + 1
+            } else {
+                0..0
+            };
+            if o < ch {
                 for (fo, fi) in tx.chunks_exact(ch).zip(at.chunks_exact_mut(ch)) {
-                    fi[i] = fo[o];
+                    fi[fed.clone()].fill(fo[o]);
                 }
             }
             let gen_hz = f64::from_bits(b.gen_hz.load(Ordering::Relaxed));
-            if i != NONE && gen_hz > 0.0 {
+            if !fed.is_empty() && gen_hz > 0.0 {
                 let amp = f64::from_bits(b.gen_amp.load(Ordering::Relaxed));
                 let w = 2.0 * PI * gen_hz / f64::from(self.rate);
                 for fi in at.chunks_exact_mut(ch) {
-                    fi[i] += (amp * gen_phase.cos()) as f32;
+                    let v = (amp * gen_phase.cos()) as f32;
+                    fi[fed.clone()].iter_mut().for_each(|x| *x += v);
                     gen_phase = (gen_phase + w) % (2.0 * PI);
                 }
             }
@@ -441,6 +454,7 @@ impl SimRig {
     }
 
     fn route(&self, input: Option<usize>) {
+        self.bench.all.store(false, Ordering::Relaxed);
         let input = input.map(|i| match self.faults.miswire {
             Some((want, got)) if want == i + 1 => got - 1,
             _ => i,
@@ -501,6 +515,22 @@ impl Rig for SimRig {
             .gen_amp
             .store(10f64.powf(level_dbfs / 20.0).to_bits(), Ordering::Relaxed);
         self.route(input);
+        !self.faults.ask_operator
+    }
+    fn self_split(&mut self, output: Option<usize>, tone: (f64, f64)) -> bool {
+        match output {
+            Some(o) => {
+                self.self_patch(o, None);
+            }
+            None => {
+                self.self_generator(None, 0.0, tone.1);
+                self.bench.gen_hz.store(
+                    (tone.0 * (1.0 + self.gen_ppm * 1e-6)).to_bits(),
+                    Ordering::Relaxed,
+                );
+            }
+        }
+        self.bench.all.store(true, Ordering::Relaxed);
         !self.faults.ask_operator
     }
 }

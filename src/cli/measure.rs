@@ -8,7 +8,7 @@ use septum::audio::sim::{SimFaults, SimRig};
 use septum::audio::stream::{CpalRig, RigConfig};
 use septum::audio::Rig;
 use septum::model::synth::write_expected_files;
-use septum::model::{stream, FrontEndModel, Resolved, DEFAULT_MODEL_TOML};
+use septum::model::{stream, CommonDriveSection, FrontEndModel, Resolved, DEFAULT_MODEL_TOML};
 use septum::procedure::session::{self, Operator, Options, SessionError};
 use septum::procedure::{limit_for_record, seconds, Plan};
 use serde_json::{json, Map};
@@ -158,7 +158,22 @@ pub fn sim_model(plan: &Plan, spec: &str) -> Result<(Resolved, String)> {
         // The interface's own output shares the converter's clock.
         m.stimulus.generator_offset_ppm = 0.0;
     }
-    Ok((m.resolve(), text))
+    m.common_drive = plan
+        .procedure
+        .common_drive
+        .as_ref()
+        .map(|c| CommonDriveSection {
+            frequencies_hz: c.frequencies_hz.clone(),
+            level_dbfs: c.level_dbfs,
+            reference_channel: c.reference_input,
+        });
+    let mut r = m.resolve();
+    // The streaming processor samples every input at the same instant (it
+    // does not simulate skew), so the expected figures carry none either.
+    for c in &mut r.channels {
+        c.skew_us = 0.0;
+    }
+    Ok((r, text))
 }
 
 fn parse_pair(s: &str) -> Result<(usize, usize)> {
@@ -266,6 +281,14 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
             plan.record_samples,
             seconds(plan.record_samples, fs)
         );
+        if let Some(c) = &plan.procedure.common_drive {
+            println!(
+                "  including {} common-drive capture(s) at {:.1} dBFS on every input, reference input {}",
+                c.frequencies_hz.len(),
+                c.level_dbfs,
+                c.reference_input
+            );
+        }
         if let Some(floor) = st.expected_floor_dbfs {
             println!(
                 "  detection limit about {:.1} dBFS over a floor of {floor:.1} dBFS",
@@ -289,7 +312,8 @@ pub fn measure(args: &Args, plan: &Plan) -> Result<usize> {
                 "simulated".into(),
                 json!({ "model": "model/model.toml", "seed": r.model.seed,
                         "expected_pairs": "model/expected-pairs.csv",
-                        "expected_channels": "model/expected-channels.csv" }),
+                        "expected_channels": "model/expected-channels.csv",
+                        "expected_common": "model/expected-common.csv" }),
             );
             expected = Some((r, text));
             Box::new(rig)

@@ -181,6 +181,20 @@ pub struct Idle {
     pub record_samples: u64,
 }
 
+/// `[common_drive]`: one signal split to every input (gain match and
+/// inter-channel skew), one capture per frequency after the drive steps.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CommonDrive {
+    /// Test frequencies, Hz, taken as written.
+    pub frequencies_hz: Vec<f64>,
+    /// Level at every input, dBFS.
+    pub level_dbfs: f64,
+    /// The input the others are compared with, from 1.
+    #[serde(default = "default_output")]
+    pub reference_input: u32,
+}
+
 /// A procedure as written.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -201,6 +215,9 @@ pub struct Procedure {
     /// The idle capture.
     #[serde(default)]
     pub idle: Idle,
+    /// The common-drive step.
+    #[serde(default)]
+    pub common_drive: Option<CommonDrive>,
     /// Pass limits: accepted as they are and passed through to run.json.
     #[serde(default)]
     pub limits: Option<toml::Table>,
@@ -213,8 +230,18 @@ pub struct Step {
     pub index: usize,
     /// Capture file, relative to the run folder.
     pub file: String,
-    /// `(aggressor input from 1, nominal frequency Hz)`, or `None` (idle).
+    /// `(aggressor input from 1, nominal frequency Hz)`, or `None` (idle
+    /// or common drive).
     pub drive: Option<(u32, f64)>,
+    /// Common drive (every input fed by the one signal) at this frequency, Hz.
+    pub common: Option<f64>,
+}
+
+impl Step {
+    /// Whether the step plays a tone (a drive or a common drive).
+    pub fn plays(&self) -> bool {
+        self.drive.is_some() || self.common.is_some()
+    }
 }
 
 /// The validated procedure and its steps.
@@ -228,7 +255,8 @@ pub struct Plan {
     pub frequencies_hz: Vec<f64>,
     /// Steady samples per drive capture.
     pub record_samples: u64,
-    /// Every capture, in order: each aggressor through every frequency, then idle.
+    /// Every capture, in order: each aggressor through every frequency, the
+    /// common-drive frequencies, then idle.
     pub steps: Vec<Step>,
 }
 
@@ -567,6 +595,47 @@ impl Plan {
                 format!("{idle} must be 0 (no idle capture) or lie between 4096 and 16777216"),
             ));
         }
+        if let Some(c) = &p.common_drive {
+            let bad = |key, msg: String| Err(("common_drive", 0, key, msg));
+            if c.frequencies_hz.is_empty() {
+                return bad("frequencies_hz", "give at least one frequency".into());
+            }
+            for (i, f) in c.frequencies_hz.iter().enumerate() {
+                if !(*f >= 10.0 && *f <= 0.45 * fs) {
+                    return bad(
+                        "frequencies_hz",
+                        format!(
+                            "{f} Hz must lie between 10 Hz and 0.45·fs = {} Hz",
+                            0.45 * fs
+                        ),
+                    );
+                }
+                if c.frequencies_hz[..i].contains(f) {
+                    return bad("frequencies_hz", format!("{f} Hz is listed twice"));
+                }
+            }
+            if !(c.level_dbfs.is_finite()
+                && c.level_dbfs <= MAX_LEVEL_DBFS
+                && c.level_dbfs >= -80.0)
+            {
+                return bad(
+                    "level_dbfs",
+                    format!(
+                        "{} must lie between -80 and {MAX_LEVEL_DBFS} dBFS",
+                        c.level_dbfs
+                    ),
+                );
+            }
+            if c.reference_input == 0 || c.reference_input > fe.inputs {
+                return bad(
+                    "reference_input",
+                    format!(
+                        "{} is not an input from 1 to {}",
+                        c.reference_input, fe.inputs
+                    ),
+                );
+            }
+        }
         let mut steps = Vec::new();
         for &a in &aggressors {
             for &f in &freqs {
@@ -575,6 +644,18 @@ impl Plan {
                     index,
                     file: format!("captures/{index:03}-drive-ch{a}-{}Hz.wav", format_freq(f)),
                     drive: Some((a, f)),
+                    common: None,
+                });
+            }
+        }
+        if let Some(c) = &p.common_drive {
+            for &f in &c.frequencies_hz {
+                let index = steps.len() + 1;
+                steps.push(Step {
+                    index,
+                    file: format!("captures/{index:03}-common-{}Hz.wav", format_freq(f)),
+                    drive: None,
+                    common: Some(f),
                 });
             }
         }
@@ -584,6 +665,7 @@ impl Plan {
                 index,
                 file: format!("captures/{index:03}-idle.wav"),
                 drive: None,
+                common: None,
             });
         }
         Ok(Self {
@@ -626,22 +708,36 @@ impl Plan {
     /// The stimulus for a tone at `freq_hz`: a sine at the procedure's
     /// level with raised-cosine fades, as mono samples.
     pub fn stimulus(&self, freq_hz: f64) -> Vec<f32> {
+        self.stimulus_at(freq_hz, self.procedure.stimulus.level_dbfs)
+    }
+
+    /// The stimulus for a tone at `freq_hz` and `level_dbfs`.
+    pub fn stimulus_at(&self, freq_hz: f64, level_dbfs: f64) -> Vec<f32> {
         let fs = f64::from(self.procedure.front_end.sample_rate_hz);
         let st = &self.procedure.stimulus;
         let ramp = (st.ramp_s * fs).round() as usize;
         let total = self.stimulus_frames();
-        let amp = 10f64.powf(st.level_dbfs / 20.0);
+        let amp = 10f64.powf(level_dbfs / 20.0);
         tone(total, ramp, amp, 2.0 * std::f64::consts::PI * freq_hz / fs)
     }
 
+    /// The level `step` plays at, dBFS (the common-drive level for a
+    /// common-drive step, the stimulus level otherwise).
+    pub fn level_of(&self, step: &Step) -> f64 {
+        match (&self.procedure.common_drive, step.common) {
+            (Some(c), Some(_)) => c.level_dbfs,
+            _ => self.procedure.stimulus.level_dbfs,
+        }
+    }
+
     /// The short, quiet tone played after each patch before the full level:
-    /// fades and 0.25 s of tone, [`QUIET_CHECK_DB`] below the set level.
-    pub fn quiet_stimulus(&self, freq_hz: f64) -> Vec<f32> {
+    /// fades and 0.25 s of tone, [`QUIET_CHECK_DB`] below `level_dbfs`.
+    pub fn quiet_stimulus(&self, freq_hz: f64, level_dbfs: f64) -> Vec<f32> {
         let fs = f64::from(self.procedure.front_end.sample_rate_hz);
         let st = &self.procedure.stimulus;
         let ramp = (st.ramp_s * fs).round() as usize;
         let total = 2 * ramp + (0.25 * fs) as usize;
-        let amp = 10f64.powf((st.level_dbfs - QUIET_CHECK_DB) / 20.0);
+        let amp = 10f64.powf((level_dbfs - QUIET_CHECK_DB) / 20.0);
         tone(total, ramp, amp, 2.0 * std::f64::consts::PI * freq_hz / fs)
     }
 
@@ -650,9 +746,12 @@ impl Plan {
         let fs = self.procedure.front_end.sample_rate_hz;
         self.steps
             .iter()
-            .map(|s| match s.drive {
-                Some(_) => seconds((pre_roll + self.stimulus_frames() + post_roll) as u64, fs),
-                None => seconds(self.procedure.idle.record_samples, fs),
+            .map(|s| {
+                if s.plays() {
+                    seconds((pre_roll + self.stimulus_frames() + post_roll) as u64, fs)
+                } else {
+                    seconds(self.procedure.idle.record_samples, fs)
+                }
             })
             .sum()
     }

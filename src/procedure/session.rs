@@ -1,6 +1,7 @@
 //! Carrying out a plan on a rig: operator instructions or the switch
 //! command before each step, one capture per step checked at once (tone on
-//! the expected input and nowhere else, no clipping, no lost block), bounded
+//! the expected input and nowhere else, or on every input for a common
+//! drive; no clipping, no lost block), bounded
 //! retries, and a run folder whose `run.json` is rewritten atomically after
 //! every finished capture, so an interruption loses nothing finished and
 //! `resume` continues where it stopped.
@@ -11,6 +12,7 @@ use crate::analysis::AnalysisConfig;
 use crate::audio::{AudioError, CaptureRequest, Rig};
 use crate::dsp::fit::{estimate_frequency, fit_tones};
 use crate::dsp::level::{amplitude_to_dbfs, rms_to_dbfs};
+use crate::run::manifest::CommonDriveEntry;
 use crate::run::{read_capture, CaptureEntry, ChannelEntry, Drive, Manifest, RunError, RUN_FORMAT};
 use serde_json::{json, Map, Value};
 use std::collections::BTreeMap;
@@ -113,6 +115,8 @@ pub struct Outcome {
 struct Folder {
     dir: PathBuf,
     done: BTreeMap<usize, CaptureEntry>,
+    /// Finished common-drive steps (listed under `common_drive`).
+    common: BTreeMap<usize, CommonDriveEntry>,
     created: String,
     extra: Map<String, Value>,
 }
@@ -136,6 +140,7 @@ impl Folder {
         let mut folder = Folder {
             dir: dir.clone(),
             done: BTreeMap::new(),
+            common: BTreeMap::new(),
             created: now(),
             extra: opt.extra.clone(),
         };
@@ -190,8 +195,29 @@ impl Folder {
                     }
                 }
             }
+            for entry in m.common_drive {
+                let step = plan
+                    .steps
+                    .iter()
+                    .find(|s| s.file == entry.file && s.common.is_some());
+                if let Some(step) = step {
+                    if dir.join(&entry.file).is_file() {
+                        folder.common.insert(step.index, entry);
+                    }
+                }
+            }
         }
         Ok(folder)
+    }
+
+    /// Steps finished (captures and common drives).
+    fn finished(&self) -> usize {
+        self.done.len() + self.common.len()
+    }
+
+    /// Whether step `index` is finished.
+    fn has(&self, index: usize) -> bool {
+        self.done.contains_key(&index) || self.common.contains_key(&index)
     }
 
     fn manifest(&self, plan: &Plan, rig: &str) -> Manifest {
@@ -223,8 +249,8 @@ impl Folder {
                 "stimulus_output": p.stimulus.output,
                 "record_samples": plan.record_samples,
                 "steps_planned": plan.steps.len(),
-                "steps_finished": self.done.len(),
-                "complete": self.done.len() == plan.steps.len(),
+                "steps_finished": self.finished(),
+                "complete": self.finished() == plan.steps.len(),
                 "updated": now(),
             }),
         );
@@ -240,7 +266,7 @@ impl Folder {
                 })
                 .collect(),
             captures: self.done.values().cloned().collect(),
-            common_drive: Vec::new(),
+            common_drive: self.common.values().cloned().collect(),
             extra,
         }
     }
@@ -307,6 +333,23 @@ fn instruction(plan: &Plan, step: &Step) -> String {
             .collect::<Vec<_>>()
             .join("; ")
     };
+    if let (Some(f), Some(c)) = (step.common, &p.common_drive) {
+        let source = match p.stimulus.source {
+            Source::Output => format!("output {}", p.stimulus.output),
+            Source::Generator => format!(
+                "the generator, set to {f:.3} Hz at {:.1} dBFS at the inputs,",
+                c.level_dbfs
+            ),
+        };
+        return format!(
+            "Step {} of {n}: common drive at {f:.3} Hz. Split {source} to every input under test \
+             (a passive splitter or a distribution amplifier, equal cable lengths);\n  \
+             IEPE supply off on every input; input {} ({}) is the reference.",
+            step.index,
+            c.reference_input,
+            plan.input_name(c.reference_input)
+        );
+    }
     match step.drive {
         Some((a, f)) => {
             let source = match p.stimulus.source {
@@ -332,16 +375,20 @@ fn instruction(plan: &Plan, step: &Step) -> String {
 }
 
 fn run_switch(cmd: &str, plan: &Plan, step: &Step, dir: &Path) -> Result<(), String> {
-    let (agg, f) = step.drive.map_or((0, 0.0), |(a, f)| (a, f));
+    let (agg, f) = match (step.drive, step.common) {
+        (Some((a, f)), _) => (a.to_string(), f),
+        (None, Some(f)) => ("all".to_string(), f),
+        (None, None) => ("0".to_string(), 0.0),
+    };
     let st = &plan.procedure.stimulus;
     let status = Command::new("sh")
         .arg("-c")
         .arg(cmd)
         .env("SEPTUM_STEP", step.index.to_string())
         .env("SEPTUM_STEPS", plan.steps.len().to_string())
-        .env("SEPTUM_AGGRESSOR", agg.to_string())
+        .env("SEPTUM_AGGRESSOR", agg)
         .env("SEPTUM_FREQUENCY_HZ", format!("{f}"))
-        .env("SEPTUM_LEVEL_DBFS", format!("{}", st.level_dbfs))
+        .env("SEPTUM_LEVEL_DBFS", format!("{}", plan.level_of(step)))
         .env("SEPTUM_OUTPUT", st.output.to_string())
         .env("SEPTUM_CAPTURE", &step.file)
         .env("SEPTUM_RUN_DIR", dir)
@@ -385,6 +432,9 @@ fn check(
     let mut order: Vec<usize> = (0..level.len()).collect();
     order.sort_by(|a, b| level[*b].total_cmp(&level[*a]));
     let mut extra = Map::new();
+    if let Some(f) = step.common {
+        return check_common(plan, &cap.channels, &level, f, config, nominal);
+    }
     let Some((agg, f)) = step.drive else {
         let loud = order[0];
         if level[loud] > nominal - 40.0 {
@@ -451,6 +501,69 @@ fn check(
     extra.insert("steady_frames".into(), json!(span.len()));
     extra.insert("tone_hz".into(), json!(est.freq_hz));
     extra.insert("aggressor_dbfs".into(), json!(got));
+    Ok(extra)
+}
+
+/// Check a common-drive capture: the tone on every input, none missing
+/// (clipping is checked before). `level` is each input's rms over the capture.
+fn check_common(
+    plan: &Plan,
+    channels: &[Vec<f32>],
+    level: &[f64],
+    f: f64,
+    config: &AnalysisConfig,
+    nominal: f64,
+) -> Result<Map<String, Value>, String> {
+    let missing: Vec<String> = level
+        .iter()
+        .enumerate()
+        .filter(|(_, l)| **l < nominal - 20.0)
+        .map(|(i, _)| (i + 1).to_string())
+        .collect();
+    if !missing.is_empty() {
+        return Err(format!(
+            "common drive: no tone on input(s) {} ({nominal:.1} dBFS expected on every input); check the splitter and its cables",
+            missing.join(", ")
+        ));
+    }
+    let fs = f64::from(plan.procedure.front_end.sample_rate_hz);
+    let r = plan
+        .procedure
+        .common_drive
+        .as_ref()
+        .map_or(1, |c| c.reference_input) as usize
+        - 1;
+    let x = &channels[r];
+    let span = steady_range(x, fs, f).map_err(|e| format!("input {} at {f} Hz: {e}", r + 1))?;
+    let est = estimate_frequency(
+        &x[span.clone()],
+        fs,
+        f,
+        config.frequency_search,
+        config.max_harmonic,
+    )
+    .map_err(|e| format!("input {}: {e}", r + 1))?;
+    let slices: Vec<&[f32]> = channels.iter().map(|c| &c[span.clone()]).collect();
+    let fits = fit_tones(&slices, &est.model).map_err(|e| e.to_string())?;
+    let got: Vec<f64> = fits
+        .iter()
+        .map(|fit| amplitude_to_dbfs(fit.fundamental()))
+        .collect();
+    if let Some((i, g)) = got.iter().enumerate().find(|(_, g)| **g < nominal - 10.0) {
+        return Err(format!(
+            "common drive: the tone on input {} is {g:.1} dBFS, more than 10 dB below the nominal {nominal:.1} dBFS; check the splitter and its cables",
+            i + 1
+        ));
+    }
+    let onset = x
+        .iter()
+        .position(|v| f64::from(v.abs()) >= 0.5 * fits[r].fundamental())
+        .unwrap_or(0);
+    let mut extra = Map::new();
+    extra.insert("onset_frame".into(), json!(onset));
+    extra.insert("steady_frames".into(), json!(span.len()));
+    extra.insert("tone_hz".into(), json!(est.freq_hz));
+    extra.insert("input_dbfs".into(), json!(got));
     Ok(extra)
 }
 
@@ -530,22 +643,29 @@ impl Session<'_> {
 
     /// An interruption with the right counts; other errors as they are.
     fn stopped(&self, e: SessionError) -> SessionError {
-        stop(e, self.folder.done.len(), self.total())
+        stop(e, self.folder.finished(), self.total())
     }
 
     /// Set up `step`: the rig itself, the switch command, or a person.
     /// Returns whether the patch changed (or is being redone).
     fn set_up(&mut self, step: &Step, retry: bool) -> Result<bool, SessionError> {
         let p = &self.plan.procedure;
-        let patch = step.drive.map(|(a, _)| a);
-        let input = patch.map(|a| a as usize - 1);
+        // Input 0 stands for "every input" (common drive).
+        let patch = step.drive.map(|(a, _)| a).or(step.common.map(|_| 0));
+        let input = step.drive.map(|(a, _)| a as usize - 1);
         let out_idx = p.stimulus.output as usize - 1;
-        let self_set = match (p.stimulus.source, step.drive) {
-            (Source::Generator, Some((_, f))) => {
+        let self_set = match (p.stimulus.source, step.drive, step.common) {
+            (Source::Output, None, Some(f)) => self
+                .rig
+                .self_split(Some(out_idx), (f, self.plan.level_of(step))),
+            (Source::Generator, None, Some(f)) => {
+                self.rig.self_split(None, (f, self.plan.level_of(step)))
+            }
+            (Source::Generator, Some((_, f)), _) => {
                 self.rig.self_generator(input, f, p.stimulus.level_dbfs)
             }
-            (Source::Generator, None) => self.rig.self_generator(None, 0.0, -200.0),
-            (Source::Output, _) => self.rig.self_patch(out_idx, input),
+            (Source::Generator, None, None) => self.rig.self_generator(None, 0.0, -200.0),
+            (Source::Output, _, _) => self.rig.self_patch(out_idx, input),
         };
         let changed = self.last_patch != Some(patch);
         let text = instruction(self.plan, step);
@@ -575,12 +695,14 @@ impl Session<'_> {
         let (plan, opt) = (self.plan, self.opt);
         let p = &plan.procedure;
         let part = self.folder.dir.join(format!("{}.part", step.file));
-        let level = p.stimulus.level_dbfs;
+        let level = plan.level_of(step);
+        let tone = step.drive.map(|(_, f)| f).or(step.common);
         // Start quiet: after every (re)patch, a short tone well below the
-        // set level must reach the expected input, and only that one.
-        if let (Source::Output, Some((a, f)), true) = (p.stimulus.source, step.drive, repatched) {
+        // set level must reach the expected input, and only that one (every
+        // input, for a common drive).
+        if let (Source::Output, Some(f), true) = (p.stimulus.source, tone, repatched) {
             let quiet = level - super::QUIET_CHECK_DB;
-            let probe = plan.quiet_stimulus(f);
+            let probe = plan.quiet_stimulus(f, level);
             let frames = self.pre + probe.len() + self.post;
             let r = capture_and_check(
                 plan,
@@ -597,17 +719,22 @@ impl Session<'_> {
             if let Err(why) = r.map_err(|e| self.stopped(e))? {
                 return Ok(Err(format!("quiet check at {quiet:.1} dBFS: {why}")));
             }
+            let reach = match step.drive {
+                Some((a, _)) => format!("input {a} only"),
+                None => "every input".to_string(),
+            };
             self.operator.tell(&format!(
-                "  quiet check at {quiet:.1} dBFS: the tone reaches input {a} only"
+                "  quiet check at {quiet:.1} dBFS: the tone reaches {reach}"
             ));
         }
-        let stim = match (p.stimulus.source, step.drive) {
-            (Source::Output, Some((_, f))) => Some(plan.stimulus(f)),
+        let stim = match (p.stimulus.source, tone) {
+            (Source::Output, Some(f)) => Some(plan.stimulus_at(f, level)),
             _ => None,
         };
-        let frames = match step.drive {
-            Some(_) => self.pre + plan.stimulus_frames() + self.post,
-            None => p.idle.record_samples as usize,
+        let frames = if step.plays() {
+            self.pre + plan.stimulus_frames() + self.post
+        } else {
+            p.idle.record_samples as usize
         };
         let r = capture_and_check(
             plan,
@@ -639,19 +766,33 @@ impl Session<'_> {
         std::fs::rename(&part, &dst).map_err(|e| io(&dst, e))?;
         extra.insert("attempts".into(), json!(attempt));
         extra.insert("recorded".into(), json!(now()));
-        let level_dbfs = self.plan.procedure.stimulus.level_dbfs;
-        let entry = CaptureEntry {
-            file: step.file.clone(),
-            drive: step.drive.map(|(a, f)| Drive {
-                channel: a,
-                frequency_hz: f,
-                level_dbfs,
-            }),
-            extra,
-        };
-        self.folder.done.insert(step.index, entry);
+        let level_dbfs = self.plan.level_of(step);
+        match (step.common, &self.plan.procedure.common_drive) {
+            (Some(f), Some(c)) => {
+                let entry = CommonDriveEntry {
+                    file: step.file.clone(),
+                    frequency_hz: f,
+                    level_dbfs,
+                    reference_channel: c.reference_input,
+                    extra,
+                };
+                self.folder.common.insert(step.index, entry);
+            }
+            _ => {
+                let entry = CaptureEntry {
+                    file: step.file.clone(),
+                    drive: step.drive.map(|(a, f)| Drive {
+                        channel: a,
+                        frequency_hz: f,
+                        level_dbfs,
+                    }),
+                    extra,
+                };
+                self.folder.done.insert(step.index, entry);
+            }
+        }
         self.folder.save(self.plan, &self.desc)?;
-        let (n, total) = (self.folder.done.len(), self.total());
+        let (n, total) = (self.folder.finished(), self.total());
         self.operator
             .tell(&format!("  captured {} ({n}/{total})", step.file));
         Ok(())
@@ -683,7 +824,7 @@ impl Session<'_> {
                             file: step.file.clone(),
                             attempts: attempt,
                             reason: why,
-                            kept: self.folder.done.len(),
+                            kept: self.folder.finished(),
                         });
                     }
                 }
@@ -694,7 +835,7 @@ impl Session<'_> {
     /// Say what is about to happen; the cautions before any tone.
     fn announce(&mut self, todo: &[&Step]) {
         let fs = self.plan.procedure.front_end.sample_rate_hz;
-        let (resumed, total) = (self.folder.done.len(), self.total());
+        let (resumed, total) = (self.folder.finished(), self.total());
         self.operator.tell(&format!("rig: {}", self.desc));
         if resumed > 0 {
             self.operator.tell(&format!(
@@ -703,19 +844,22 @@ impl Session<'_> {
         }
         let secs: f64 = todo
             .iter()
-            .map(|s| match s.drive {
-                Some(_) => super::seconds(
-                    (self.pre + self.plan.stimulus_frames() + self.post) as u64,
-                    fs,
-                ),
-                None => super::seconds(self.plan.procedure.idle.record_samples, fs),
+            .map(|s| {
+                if s.plays() {
+                    super::seconds(
+                        (self.pre + self.plan.stimulus_frames() + self.post) as u64,
+                        fs,
+                    )
+                } else {
+                    super::seconds(self.plan.procedure.idle.record_samples, fs)
+                }
             })
             .sum();
         self.operator.tell(&format!(
             "{} capture(s) to make: about {secs:.0} s of recording at real time, plus patching",
             todo.len()
         ));
-        if todo.iter().any(|s| s.drive.is_some()) {
+        if todo.iter().any(|s| s.plays()) {
             self.operator.tell(CAUTIONS);
         }
     }
@@ -745,11 +889,11 @@ pub fn run(
         post: (opt.post_roll_s * fs).round() as usize,
         last_patch: None,
     };
-    let resumed = s.folder.done.len();
+    let resumed = s.folder.finished();
     let todo: Vec<&Step> = plan
         .steps
         .iter()
-        .filter(|st| !s.folder.done.contains_key(&st.index))
+        .filter(|st| !s.folder.has(st.index))
         .collect();
     s.announce(&todo);
     let mut retries = 0;
