@@ -36,4 +36,5 @@ pub mod model;
 pub mod procedure;
 pub mod report;
 pub mod run;
+mod tomltext;
 pub mod verdict;

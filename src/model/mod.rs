@@ -334,19 +334,8 @@ impl FrontEndModel {
             path: path.to_string(),
             message,
         };
-        let model: FrontEndModel = toml::from_str(text).map_err(|e| {
-            let msg = e.message().to_string();
-            let line = e
-                .span()
-                .map(|s| {
-                    format!(
-                        "line {}: ",
-                        text[..s.start.min(text.len())].matches('\n').count() + 1
-                    )
-                })
-                .unwrap_or_default();
-            invalid(format!("{line}{msg}"))
-        })?;
+        let model: FrontEndModel =
+            toml::from_str(text).map_err(|e| invalid(crate::tomltext::describe(text, &e)))?;
         model.validate().map_err(invalid)?;
         Ok(model)
     }

@@ -345,12 +345,10 @@ impl Plan {
             message,
         };
         let procedure: Procedure = toml::from_str(text).map_err(|e| {
-            let msg = e.message().trim().to_string();
-            let place = e
-                .span()
-                .map(|s| {
-                    let at = s.start.min(text.len());
-                    let line = text[..at].matches('\n').count() + 1;
+            let msg = e.message().trim().replace('\n', " ");
+            let place = crate::tomltext::error_offset(text, &e)
+                .map(|at| {
+                    let line = crate::tomltext::line_at(text, at);
                     match key_on_line(text, at) {
                         Some(k) if !msg.contains(&k) => format!("line {line}: key `{k}`: "),
                         _ => format!("line {line}: "),

@@ -210,20 +210,9 @@ pub(crate) fn parse_toml<T: serde::de::DeserializeOwned>(
     text: &str,
     path: &std::path::Path,
 ) -> Result<T, VerdictError> {
-    toml::from_str(text).map_err(|e| {
-        let line = e
-            .span()
-            .map(|s| {
-                format!(
-                    "line {}: ",
-                    text[..s.start.min(text.len())].matches('\n').count() + 1
-                )
-            })
-            .unwrap_or_default();
-        VerdictError::Invalid {
-            path: path.to_path_buf(),
-            message: format!("{line}{}", e.message().trim()).replace('\n', " "),
-        }
+    toml::from_str(text).map_err(|e| VerdictError::Invalid {
+        path: path.to_path_buf(),
+        message: crate::tomltext::describe(text, &e),
     })
 }
 
