@@ -122,17 +122,7 @@ fn print_limits(
         }
         println!();
     }
-    let mut bad: Vec<_> = l
-        .pairs
-        .iter()
-        .filter(|p| p.judgement.outcome != Outcome::Pass)
-        .collect();
-    bad.sort_by(|a, b| {
-        b.judgement
-            .outcome
-            .cmp(&a.judgement.outcome)
-            .then(a.judgement.margin_db.total_cmp(&b.judgement.margin_db))
-    });
+    let bad = l.not_passing();
     if !bad.is_empty() {
         println!(
             "Pairs not passing ({} of {} judged{}; separation \">\" is a lower bound):",

@@ -256,17 +256,7 @@ fn limits(l: &LimitsReport, r: &ResultsFolder, path: &str) -> String {
         }
         s += "</tbody></table>";
     }
-    let mut bad: Vec<_> = l
-        .pairs
-        .iter()
-        .filter(|p| p.judgement.outcome != Outcome::Pass)
-        .collect();
-    bad.sort_by(|a, b| {
-        b.judgement
-            .outcome
-            .cmp(&a.judgement.outcome)
-            .then(a.judgement.margin_db.total_cmp(&b.judgement.margin_db))
-    });
+    let bad = l.not_passing();
     if !bad.is_empty() {
         let _ = write!(
             s,

@@ -305,6 +305,22 @@ pub struct LimitsReport {
 }
 
 impl LimitsReport {
+    /// The pairs that did not pass, fails first, then by margin (smallest first).
+    pub fn not_passing(&self) -> Vec<&PairCheck> {
+        let mut bad: Vec<&PairCheck> = self
+            .pairs
+            .iter()
+            .filter(|p| p.judgement.outcome != Outcome::Pass)
+            .collect();
+        bad.sort_by(|a, b| {
+            b.judgement
+                .outcome
+                .cmp(&a.judgement.outcome)
+                .then(a.judgement.margin_db.total_cmp(&b.judgement.margin_db))
+        });
+        bad
+    }
+
     /// Pairs with the given outcome.
     pub fn count(&self, outcome: Outcome) -> usize {
         self.pairs
