@@ -6,8 +6,8 @@
 use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::amplitude_to_dbfs;
-use crate::dsp::fit::{coarse_frequency, estimate_frequency, fit_tones, residual_into};
-use crate::dsp::noise::quadrature_sigma;
+use crate::dsp::fit::{coarse_frequency, estimate_frequency, fit_tones, residual_pass, DECIMATION};
+use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::run::manifest::CommonDriveEntry;
 use crate::run::Capture;
 use serde::Serialize;
@@ -78,17 +78,30 @@ pub fn analyze_common(
     let model = est.model;
     let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
     let fits = fit_tones(&slices, &model).map_err(|e| e.to_string())?;
+    // The same residual pass and local-noise estimate as a drive capture.
     let mut planner = rustfft::FftPlanner::new();
-    let mut residual = Vec::new();
-    let rel_sigma: Vec<f64> = slices
+    let len = span.len();
+    let stats = residual_pass(
+        &slices,
+        &fits,
+        &model,
+        &vec![false; slices.len()],
+        &mut vec![Vec::new(); slices.len()],
+    );
+    let rel_sigma: Vec<f64> = stats
         .iter()
         .zip(&fits)
-        .map(|(x, fit)| {
-            residual_into(x, fit, &model, &mut residual);
-            let sigma = quadrature_sigma(&residual, est.freq_hz, fs, model.terms, &mut planner)
-                .unwrap_or_else(|| {
-                    (residual.iter().map(|v| v * v).sum::<f64>() * 2.0).sqrt() / x.len() as f64
-                });
+        .map(|(st, fit)| {
+            let sigma = quadrature_sigma_decimated(
+                st,
+                DECIMATION,
+                len,
+                est.freq_hz,
+                fs,
+                model.terms,
+                &mut planner,
+            )
+            .unwrap_or_else(|| (2.0 * st.sum_sq).sqrt() / len as f64);
             sigma / fit.fundamental()
         })
         .collect();
