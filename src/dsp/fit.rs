@@ -93,9 +93,6 @@ pub struct ToneFit {
     pub sum_sq: f64,
     /// Samples in the record.
     pub samples: usize,
-    /// Variance factor of one quadrature part of the fundamental: the diagonal
-    /// of the inverse Gram matrix (≈ 2/L for a long record).
-    pub quadrature_var_factor: f64,
 }
 
 impl ToneFit {
@@ -112,16 +109,6 @@ impl ToneFit {
     /// Phase of term `k` in radians, as `a·cos(kωt + φ)`.
     pub fn phase(&self, k: usize) -> f64 {
         (-self.sin[k]).atan2(self.cos[k])
-    }
-
-    /// Model value at time `t` (samples from the centre) for angular frequency `omega`.
-    pub fn value_at(&self, omega: f64, t: f64) -> f64 {
-        let mut v = self.dc;
-        for k in 0..self.cos.len() {
-            let (s, c) = ((k + 1) as f64 * omega * t).sin_cos();
-            v += self.cos[k] * c + self.sin[k] * s;
-        }
-        v
     }
 }
 
@@ -253,7 +240,6 @@ pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>,
     let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
         freq_hz: model.omega / (2.0 * PI),
     })?;
-    let var_factor = chol.inverse_diagonal(1).max(chol.inverse_diagonal(2));
     let mut proj = vec![vec![0.0; p]; channels.len()];
     let mut sum_sq = vec![0.0; channels.len()];
     let mut basis = BasisBlock::new(model.terms);
@@ -285,7 +271,6 @@ pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>,
                 sin: theta[2..].iter().step_by(2).copied().collect(),
                 sum_sq: ss,
                 samples: len,
-                quadrature_var_factor: var_factor,
             }
         })
         .collect())
