@@ -1,16 +1,17 @@
 //! One capture: steady part, frequency, fits on every channel, explicit
 //! residuals, local noise and detection limits.
 
-use super::quality::{drive_quality, out_of_band_peak, DriveQuality};
+use super::quality::{drive_quality, out_of_band_peaks, DriveQuality};
 use super::steady::steady_range;
 use super::AnalysisConfig;
+use crate::dsp::dbfs_to_amplitude;
 use crate::dsp::fit::{
-    coarse_frequency, estimate_frequency, fit_tones, residual_pass, ToneModel, DECIMATION,
+    coarse_frequency, estimate_frequency, fit_frames, residual_frames, ToneModel, DECIMATION,
 };
 use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
-use crate::run::{Capture, Drive};
+use crate::run::{Drive, FrameCapture};
 use rustfft::FftPlanner;
 use serde::Serialize;
 
@@ -38,8 +39,10 @@ pub struct ChannelFit {
     pub clipped: usize,
     /// Mean-square residual in the analysis bands (see [`AnalysisConfig::bands`]).
     pub band_power: Vec<f64>,
-    /// Largest component above the usable band over the whole capture, peak amplitude.
-    pub out_of_band_peak: f64,
+    /// Largest component above the usable band over the whole capture, peak
+    /// amplitude; `None` where the channel's peak rules out any component at
+    /// the warning level (see [`out_of_band_peaks`]).
+    pub out_of_band_peak: Option<f64>,
 }
 
 /// The analysis of one capture.
@@ -72,7 +75,7 @@ pub const SPECTRUM_BUCKETS: usize = 1024;
 
 /// Analyse one capture. `file` names it in messages.
 pub fn analyze_capture(
-    capture: &Capture,
+    capture: &FrameCapture,
     file: &str,
     drive: Option<Drive>,
     config: &AnalysisConfig,
@@ -83,17 +86,20 @@ pub fn analyze_capture(
 /// [`analyze_capture`], measuring the band-limited noise only when
 /// `need_bands` (captures that feed the noise floors).
 pub fn analyze_capture_with(
-    capture: &Capture,
+    capture: &FrameCapture,
     file: &str,
     drive: Option<Drive>,
     config: &AnalysisConfig,
     need_bands: bool,
 ) -> Result<CaptureAnalysis, String> {
     let fs = f64::from(capture.sample_rate_hz);
-    let frames = capture.frames();
-    let (span, model) = match drive {
-        Some(d) => {
-            let aggressor = &capture.channels[d.channel as usize - 1];
+    let all = capture.frames();
+    let frames = all.len();
+    let nch = all.channels();
+    // The driven channel on its own: it sets the span and the frequency.
+    let aggressor = drive.map(|d| all.channel(d.channel as usize - 1));
+    let (span, model) = match (drive, &aggressor) {
+        (Some(d), Some(aggressor)) => {
             if aggressor.iter().all(|v| *v == 0.0) {
                 return Err(format!(
                     "channel {} at {} Hz: silent, no tone",
@@ -112,43 +118,48 @@ pub fn analyze_capture_with(
                 config.max_harmonic,
             )
             .map_err(|e| format!("channel {}: {e}", d.channel))?;
+            if std::env::var_os("SEPTUM_DEBUG_GN").is_some() {
+                eprintln!("gn {}", est.iterations);
+            }
             (span, Some(est.model))
         }
-        None => (0..frames, None),
+        _ => (0..frames, None),
     };
-    let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
+    let steady = all.slice(span.clone());
     let mut planner = FftPlanner::new();
-    let mut residual = Vec::new();
     let bands = config.bands(fs);
     let usable_edge = fs / config.usable_band_ratio;
-    let fits = match &model {
-        Some(m) => Some(fit_tones(&slices, m).map_err(|e| e.to_string())?),
-        None => None,
-    };
     // Per channel over the whole capture: peak, clipping, out-of-band check.
-    let whole: Vec<(f64, usize, f64)> = capture
-        .channels
-        .iter()
-        .map(|full| {
-            let peak = full.iter().fold(0.0f32, |p, v| p.max(v.abs()));
-            let clip = config.clip_level as f32;
-            let clipped = full.iter().filter(|v| v.abs() >= clip).count();
-            (
-                f64::from(peak),
-                clipped,
-                out_of_band_peak(full, fs, usable_edge),
-            )
+    // Samples are counted only on channels whose peak reaches the level.
+    let clip = config.clip_level as f32;
+    let peaks: Vec<(f32, usize)> = (0..nch)
+        .map(|c| {
+            let peak = capture.peaks[c];
+            let clipped = if peak >= clip {
+                all.channel(c).iter().filter(|v| v.abs() >= clip).count()
+            } else {
+                0
+            };
+            (peak, clipped)
         })
         .collect();
+    let out_of_band = out_of_band_peaks(
+        all,
+        &capture.peaks,
+        dbfs_to_amplitude(config.out_of_band_warn_dbfs),
+        fs,
+        usable_edge,
+    );
     let len = span.len() as f64;
-    let keep = vec![need_bands; slices.len()];
-    let mut kept: Vec<Vec<f64>> = vec![Vec::new(); slices.len()];
-    let channels: Vec<ChannelFit> = match (&model, &fits) {
-        (Some(m), Some(fits)) => {
-            let stats = residual_pass(&slices, fits, m, &keep, &mut kept);
+    let keep = vec![need_bands; nch];
+    let mut kept: Vec<Vec<f64>> = vec![Vec::new(); nch];
+    let channels: Vec<ChannelFit> = match &model {
+        Some(m) => {
+            let fits = fit_frames(steady, m).map_err(|e| e.to_string())?;
+            let stats = residual_frames(steady, &fits, m, &keep, &mut kept);
             stats
                 .iter()
-                .zip(fits)
+                .zip(&fits)
                 .enumerate()
                 .map(|(i, (st, fit))| {
                     let sigma = quadrature_sigma_decimated(
@@ -173,21 +184,19 @@ pub fn analyze_capture_with(
                         dc: fit.dc,
                         residual_rms: (st.sum_sq / (len - m.params() as f64)).sqrt(),
                         quadrature_sigma: sigma,
-                        peak: whole[i].0,
-                        clipped: whole[i].1,
+                        peak: f64::from(peaks[i].0),
+                        clipped: peaks[i].1,
                         band_power,
-                        out_of_band_peak: whole[i].2,
+                        out_of_band_peak: out_of_band[i],
                     }
                 })
                 .collect()
         }
-        _ => slices
-            .iter()
-            .enumerate()
-            .map(|(i, x)| {
+        None => (0..nch)
+            .map(|i| {
+                let x = steady.channel(i);
                 let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / len;
-                residual.clear();
-                residual.extend(x.iter().map(|v| f64::from(*v) - mean));
+                let residual: Vec<f64> = x.iter().map(|v| f64::from(*v) - mean).collect();
                 let ss: f64 = residual.iter().map(|r| r * r).sum();
                 let band_power = if need_bands {
                     band_powers(&residual, fs, &bands)
@@ -202,19 +211,19 @@ pub fn analyze_capture_with(
                     dc: mean,
                     residual_rms: (ss / (len - 1.0)).sqrt(),
                     quadrature_sigma: None,
-                    peak: whole[i].0,
-                    clipped: whole[i].1,
+                    peak: f64::from(peaks[i].0),
+                    clipped: peaks[i].1,
                     band_power,
-                    out_of_band_peak: whole[i].2,
+                    out_of_band_peak: out_of_band[i],
                 }
             })
             .collect(),
     };
     let mut spectra = Vec::new();
     let mut quality = None;
-    if let (Some(d), Some(m)) = (drive, &model) {
+    if let (Some(d), Some(m), Some(aggressor)) = (drive, &model, &aggressor) {
         quality = drive_quality(
-            slices[d.channel as usize - 1],
+            &aggressor[span.clone()],
             fs,
             d.channel,
             d.frequency_hz,
@@ -226,8 +235,12 @@ pub fn analyze_capture_with(
             .filter(|c| c.channel != d.channel)
             .max_by(|a, b| a.amplitude.total_cmp(&b.amplitude))
             .map(|c| c.channel);
-        for ch in std::iter::once(d.channel).chain(loudest) {
-            if let Some(s) = log_spectrum(slices[ch as usize - 1], fs, SPECTRUM_BUCKETS) {
+        if let Some(s) = log_spectrum(&aggressor[span.clone()], fs, SPECTRUM_BUCKETS) {
+            spectra.push((d.channel, s));
+        }
+        if let Some(ch) = loudest {
+            let victim = steady.channel(ch as usize - 1);
+            if let Some(s) = log_spectrum(&victim, fs, SPECTRUM_BUCKETS) {
                 spectra.push((ch, s));
             }
         }

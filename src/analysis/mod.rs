@@ -12,7 +12,7 @@ pub mod steady;
 pub use capture::{analyze_capture, CaptureAnalysis, ChannelFit};
 
 use crate::dsp::{amplitude_to_dbfs, power_to_dbfs};
-use crate::run::{read_capture, Manifest, RunError};
+use crate::run::{read_capture, read_frames, Manifest, RunError};
 use rayon::prelude::*;
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -254,7 +254,7 @@ pub fn analyze_run(
         .par_iter()
         .map(|entry| {
             let path = manifest.capture_path(run_dir, entry);
-            let cap = read_capture(&path, nch, manifest.sample_rate_hz)?;
+            let cap = read_frames(&path, nch, manifest.sample_rate_hz)?;
             // Band-limited floors come from idle captures when there are
             // any, else from the victims of the first few drive captures.
             let need_bands =
@@ -449,7 +449,9 @@ fn check_out_of_band(
 ) {
     let edge = f64::from(sample_rate_hz) / config.usable_band_ratio;
     for c in &cap.channels {
-        let oob = amplitude_to_dbfs(c.out_of_band_peak);
+        let Some(oob) = c.out_of_band_peak.map(amplitude_to_dbfs) else {
+            continue;
+        };
         if oob >= config.out_of_band_warn_dbfs {
             let in_band =
                 amplitude_to_dbfs(c.amplitude).max(crate::dsp::rms_to_dbfs(c.residual_rms));

@@ -3,6 +3,7 @@
 //! the jitter-limited SNR, and the strongest component above the usable band.
 
 use crate::dsp::fit::{fit_tones, residual_into, ToneModel};
+use crate::dsp::frames::Frames;
 use crate::dsp::level::{enob_from_nad, jitter_snr_db};
 use crate::dsp::window::{FLAT_TOP, HANN};
 use crate::dsp::{amplitude_to_dbfs, rms_to_dbfs};
@@ -102,40 +103,68 @@ fn largest_line(r: &[f64], omega: f64) -> f64 {
     out.iter()
         .enumerate()
         .filter(|(k, _)| *k > 3 && (*k as f64 - tone_bin).abs() > 3.0)
-        .map(|(_, c)| 2.0 * c.norm() / s1)
+        .map(|(_, c)| c.norm_sqr())
         .fold(0.0, f64::max)
+        .sqrt()
+        * 2.0
+        / s1
 }
 
-/// Largest component above `edge_hz` in `x`, as a peak amplitude: the
-/// highest sine-calibrated flat-top bin over up to four 8192-sample segments
-/// spread over the whole capture.
-pub fn out_of_band_peak(x: &[f32], sample_rate_hz: f64, edge_hz: f64) -> f64 {
-    let seg = 8192.min(x.len());
+/// Per channel, the largest component above `edge_hz`, as a peak
+/// amplitude: the highest sine-calibrated flat-top bin over up to four
+/// 8192-frame segments spread over the whole capture.
+///
+/// A bin's estimate `2·|Σ w·x·e^{−jθn}| / Σw` cannot exceed
+/// `2·Σ|w| / Σw` times the channel's largest sample (`peaks`). Channels
+/// for which that bound is below `level` (the warning level) are not
+/// transformed and get `None`.
+pub fn out_of_band_peaks(
+    frames: Frames,
+    peaks: &[f32],
+    level: f64,
+    sample_rate_hz: f64,
+    edge_hz: f64,
+) -> Vec<Option<f64>> {
+    let (len, nch) = (frames.len(), frames.channels());
+    let seg = 8192.min(len);
     if seg < 64 {
-        return 0.0;
+        return vec![Some(0.0); nch];
     }
     let w = FLAT_TOP.cached(seg);
     let s1: f64 = w.iter().sum();
+    let gain_bound = 2.0 * w.iter().map(|v| v.abs()).sum::<f64>() / s1;
+    let mut peak: Vec<Option<f64>> = peaks
+        .iter()
+        .map(|p| (f64::from(*p) * gain_bound >= level).then_some(0.0))
+        .collect();
+    let wanted: Vec<usize> = (0..nch).filter(|c| peak[*c].is_some()).collect();
+    if wanted.is_empty() {
+        return peak;
+    }
     let fft = crate::dsp::plans::real_forward(seg);
     let mut buf = fft.make_input_vec();
     let mut out = fft.make_output_vec();
     let first_bin = (edge_hz / sample_rate_hz * seg as f64).ceil() as usize + 5;
-    let starts = 4.min(x.len() / seg).max(1);
-    let mut peak = 0.0f64;
+    let starts = 4.min(len / seg).max(1);
     for i in 0..starts {
         let start = if starts == 1 {
             0
         } else {
-            i * (x.len() - seg) / (starts - 1)
+            i * (len - seg) / (starts - 1)
         };
-        let part = &x[start..start + seg];
-        let mean = part.iter().map(|v| f64::from(*v)).sum::<f64>() / seg as f64;
-        for (b, (v, wv)) in buf.iter_mut().zip(part.iter().zip(w.iter())) {
-            *b = (f64::from(*v) - mean) * wv;
-        }
-        if fft.process(&mut buf, &mut out).is_ok() {
-            for c in out.iter().skip(first_bin) {
-                peak = peak.max(2.0 * c.norm() / s1);
+        for &c in &wanted {
+            let x = frames.channel_range(c, start..start + seg);
+            let mean = x.iter().map(|v| f64::from(*v)).sum::<f64>() / seg as f64;
+            for (b, (v, wv)) in buf.iter_mut().zip(x.iter().zip(w.iter())) {
+                *b = (f64::from(*v) - mean) * wv;
+            }
+            if fft.process(&mut buf, &mut out).is_ok() {
+                let p = out
+                    .iter()
+                    .skip(first_bin)
+                    .map(|c| c.norm_sqr())
+                    .fold(0.0, f64::max);
+                peak[c] = peak[c].map(|q| q.max(2.0 * p.sqrt() / s1));
             }
         }
     }

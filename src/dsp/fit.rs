@@ -7,6 +7,7 @@
 //! Gram matrix and one Cholesky factor serve them all; per channel only the
 //! projections `Σ x·φ` are accumulated, in f64.
 
+use super::frames::{Frames, LANES};
 use super::linalg::Cholesky;
 use super::osc::{fill_harmonics, BLOCK};
 use std::f64::consts::PI;
@@ -220,62 +221,6 @@ fn gram(model: &ToneModel, len: usize) -> Vec<f64> {
     g
 }
 
-/// Fit `model` to every channel at once. All channels must have the same length.
-///
-/// # Panics
-/// When the channels differ in length.
-pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
-    let len = channels.first().map_or(0, |c| c.len());
-    assert!(
-        channels.iter().all(|c| c.len() == len),
-        "channels differ in length"
-    );
-    let p = model.params();
-    if len < 2 * p + 2 {
-        return Err(FitError::TooShort {
-            samples: len,
-            params: p,
-        });
-    }
-    let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
-        freq_hz: model.omega / (2.0 * PI),
-    })?;
-    let mut proj = vec![vec![0.0; p]; channels.len()];
-    let mut sum_sq = vec![0.0; channels.len()];
-    let mut basis = BasisBlock::new(model.terms);
-    let mut xf = vec![0.0; BLOCK];
-    let mut n0 = 0;
-    while n0 < len {
-        let m = BLOCK.min(len - n0);
-        basis.fill(model, n0, m);
-        for (c, x) in channels.iter().enumerate() {
-            let xf = &mut xf[..m];
-            widen(&x[n0..n0 + m], xf);
-            let b = &mut proj[c];
-            b[0] += sum(xf);
-            sum_sq[c] += dot(xf, xf);
-            for (i, bi) in b.iter_mut().enumerate().skip(1) {
-                *bi += dot(xf, &basis.column(i).unwrap()[..m]);
-            }
-        }
-        n0 += m;
-    }
-    Ok(proj
-        .iter()
-        .zip(sum_sq)
-        .map(|(b, ss)| {
-            let theta = chol.solve(b);
-            ToneFit {
-                dc: theta[0],
-                cos: theta[1..].iter().step_by(2).copied().collect(),
-                sin: theta[2..].iter().step_by(2).copied().collect(),
-                sum_sq: ss,
-                samples: len,
-            }
-        })
-        .collect())
-}
-
 /// Explicit residual `x − model` of one channel into `residual`; returns
 /// its sum of squares.
 pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut Vec<f64>) -> f64 {
@@ -317,37 +262,358 @@ pub struct ResidualStats {
     pub window_energy: f64,
 }
 
-/// One pass over every channel: the explicit residual `x − model` with the
-/// basis generated once per sample for all channels. Keeps its sum of
-/// squares and its decimated baseband (see [`ResidualStats`]); channels with
-/// `keep[c]` also get the whole residual appended to `kept[c]`.
+// ---------------------------------------------------------------------------
+// Multichannel passes over interleaved frames.
+//
+// The basis (cos and sin of each harmonic) is generated once per frame and
+// laid out frame by frame; LANES neighbouring channels are accumulated side by
+// side, so each frame costs one load of the samples and one multiply-add per
+// basis column for LANES channels at once. The number of basis columns is a
+// const generic so that every accumulator stays in a register.
+
+/// Frames per block of the multichannel passes (a multiple of [`DECIMATION`]).
+const FRAME_BLOCK: usize = BLOCK;
+
+/// Basis values of a block, frame by frame: `[cos ωt, sin ωt, cos 2ωt, …]`.
+struct BasisRows<const C: usize> {
+    columns: BasisBlock,
+    rows: Vec<[f64; C]>,
+}
+
+impl<const C: usize> BasisRows<C> {
+    fn new() -> Self {
+        Self {
+            columns: BasisBlock::new(C / 2),
+            rows: vec![[0.0; C]; FRAME_BLOCK],
+        }
+    }
+
+    fn fill(&mut self, model: &ToneModel, n0: usize, m: usize) -> &[[f64; C]] {
+        self.columns.fill(model, n0, m);
+        for (t, row) in self.rows[..m].iter_mut().enumerate() {
+            for k in 0..C / 2 {
+                row[2 * k] = self.columns.cos[k][t];
+                row[2 * k + 1] = self.columns.sin[k][t];
+            }
+        }
+        &self.rows[..m]
+    }
+}
+
+/// Per lane: Σx, Σx² and Σx·φ for every basis column φ.
+#[derive(Clone, Copy)]
+struct LaneSums<const C: usize> {
+    sum: [f64; LANES],
+    sum_sq: [f64; LANES],
+    proj: [[f64; LANES]; C],
+}
+
+impl<const C: usize> LaneSums<C> {
+    const ZERO: Self = Self {
+        sum: [0.0; LANES],
+        sum_sq: [0.0; LANES],
+        proj: [[0.0; LANES]; C],
+    };
+
+    fn add(&mut self, o: &Self) {
+        for l in 0..LANES {
+            self.sum[l] += o.sum[l];
+            self.sum_sq[l] += o.sum_sq[l];
+            for q in 0..C {
+                self.proj[q][l] += o.proj[q][l];
+            }
+        }
+    }
+}
+
+/// The sums of lane group `g` over one block.
+#[inline(always)]
+fn project_group<const C: usize>(block: Frames, g: usize, rows: &[[f64; C]]) -> LaneSums<C> {
+    let mut s = LaneSums::<C>::ZERO;
+    for (t, b) in rows.iter().enumerate() {
+        let x = block.lanes(t, g);
+        for l in 0..LANES {
+            s.sum[l] += x[l];
+            s.sum_sq[l] = x[l].mul_add(x[l], s.sum_sq[l]);
+        }
+        for q in 0..C {
+            for l in 0..LANES {
+                s.proj[q][l] = x[l].mul_add(b[q], s.proj[q][l]);
+            }
+        }
+    }
+    s
+}
+
+/// Projections `[Σx, Σx·φ_1, …]` and Σx² of every channel.
+fn project_lanes<const C: usize>(frames: Frames, model: &ToneModel) -> Vec<(Vec<f64>, f64)> {
+    let len = frames.len();
+    let mut totals = vec![LaneSums::<C>::ZERO; frames.groups()];
+    let mut basis = BasisRows::<C>::new();
+    for n0 in (0..len).step_by(FRAME_BLOCK) {
+        let m = FRAME_BLOCK.min(len - n0);
+        let rows = basis.fill(model, n0, m);
+        let block = frames.slice(n0..n0 + m);
+        for (g, total) in totals.iter_mut().enumerate() {
+            total.add(&project_group(block, g, rows));
+        }
+    }
+    (0..frames.channels())
+        .map(|c| {
+            let (s, l) = (&totals[c / LANES], c % LANES);
+            let mut b = Vec::with_capacity(C + 1);
+            b.push(s.sum[l]);
+            b.extend(s.proj.iter().map(|p| p[l]));
+            (b, s.sum_sq[l])
+        })
+        .collect()
+}
+
+/// Per channel, the projections of [`project_lanes`] by the per-channel passes.
+fn project_channels(frames: Frames, model: &ToneModel) -> Vec<(Vec<f64>, f64)> {
+    let len = frames.len();
+    let p = model.params();
+    let channels = super::frames::deinterleave(frames);
+    let mut out = vec![(vec![0.0; p], 0.0); channels.len()];
+    let mut basis = BasisBlock::new(model.terms);
+    let mut xf = vec![0.0; BLOCK];
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for (c, x) in channels.iter().enumerate() {
+            let xf = &mut xf[..m];
+            widen(&x[n0..n0 + m], xf);
+            let (b, ss) = &mut out[c];
+            b[0] += sum(xf);
+            *ss += dot(xf, xf);
+            for (i, bi) in b.iter_mut().enumerate().skip(1) {
+                *bi += dot(xf, &basis.column(i).unwrap()[..m]);
+            }
+        }
+        n0 += m;
+    }
+    out
+}
+
+/// Call `$f::<2·terms>` for the harmonic counts the kernels are built for
+/// (up to 8); more harmonics take `$fallback`, the per-channel passes.
+macro_rules! by_columns {
+    ($terms:expr, $f:ident ( $($arg:expr),* ), $fallback:expr) => {
+        match $terms {
+            1 => $f::<2>($($arg),*),
+            2 => $f::<4>($($arg),*),
+            3 => $f::<6>($($arg),*),
+            4 => $f::<8>($($arg),*),
+            5 => $f::<10>($($arg),*),
+            6 => $f::<12>($($arg),*),
+            7 => $f::<14>($($arg),*),
+            8 => $f::<16>($($arg),*),
+            _ => $fallback,
+        }
+    };
+}
+
+/// Fit `model` to every channel of `frames` at once.
+pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
+    let len = frames.len();
+    let p = model.params();
+    if len < 2 * p + 2 {
+        return Err(FitError::TooShort {
+            samples: len,
+            params: p,
+        });
+    }
+    let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
+        freq_hz: model.omega / (2.0 * PI),
+    })?;
+    let proj = by_columns!(
+        model.terms,
+        project_lanes(frames, model),
+        project_channels(frames, model)
+    );
+    Ok(proj
+        .into_iter()
+        .map(|(b, ss)| {
+            let theta = chol.solve(&b);
+            ToneFit {
+                dc: theta[0],
+                cos: theta[1..].iter().step_by(2).copied().collect(),
+                sin: theta[2..].iter().step_by(2).copied().collect(),
+                sum_sq: ss,
+                samples: len,
+            }
+        })
+        .collect())
+}
+
+/// Fit `model` to every channel at once. All channels must have the same length.
 ///
 /// # Panics
-/// When the slices differ in length from each other or from `fits`/`keep`.
-pub fn residual_pass(
-    channels: &[&[f32]],
+/// When the channels differ in length.
+pub fn fit_tones(channels: &[&[f32]], model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
+    if channels.is_empty() {
+        return Ok(Vec::new());
+    }
+    let data = super::frames::interleave(channels);
+    fit_frames(Frames::new(&data, channels.len()), model)
+}
+
+/// Per lane: the fitted coefficients of a lane group.
+struct LaneCoefs<const C: usize> {
+    dc: [f64; LANES],
+    coef: [[f64; LANES]; C],
+}
+
+impl<const C: usize> LaneCoefs<C> {
+    fn new(fits: &[ToneFit]) -> Self {
+        let mut s = Self {
+            dc: [0.0; LANES],
+            coef: [[0.0; LANES]; C],
+        };
+        for (l, f) in fits.iter().enumerate() {
+            s.dc[l] = f.dc;
+            for k in 0..C / 2 {
+                s.coef[2 * k][l] = f.cos[k];
+                s.coef[2 * k + 1][l] = f.sin[k];
+            }
+        }
+        s
+    }
+}
+
+/// What the residual pass does with one block of one lane group.
+struct ResidualBlock<'a, const C: usize> {
+    rows: &'a [[f64; C]],
+    /// Per frame: the window times cos ωt and sin ωt (0 past the window).
+    mix: &'a [(f64, f64)],
+    /// Index of the block's first decimated sample.
+    first_block: usize,
+    /// Number of decimated samples kept.
+    blocks: usize,
+}
+
+/// Residual of lane group `g` over one block: adds Σr² to `sum_sq`, pushes
+/// the decimated baseband into `stats`, and the residual itself into
+/// `kept` rows (when given).
+#[inline(always)]
+fn residual_group<const C: usize>(
+    block: Frames,
+    g: usize,
+    coefs: &LaneCoefs<C>,
+    job: &ResidualBlock<C>,
+    sum_sq: &mut [f64; LANES],
+    stats: &mut [ResidualStats],
+    mut kept: Option<&mut [[f64; LANES]]>,
+) {
+    let mut ss = [0.0; LANES];
+    for (d, t0) in (0..job.rows.len()).step_by(DECIMATION).enumerate() {
+        let t1 = (t0 + DECIMATION).min(job.rows.len());
+        let (mut re, mut im) = ([0.0; LANES], [0.0; LANES]);
+        for t in t0..t1 {
+            let x = block.lanes(t, g);
+            let b = &job.rows[t];
+            let mut r = [0.0; LANES];
+            for l in 0..LANES {
+                r[l] = x[l] - coefs.dc[l];
+            }
+            for q in 0..C {
+                for l in 0..LANES {
+                    r[l] = (-coefs.coef[q][l]).mul_add(b[q], r[l]);
+                }
+            }
+            let (wc, ws) = job.mix[t];
+            for l in 0..LANES {
+                ss[l] = r[l].mul_add(r[l], ss[l]);
+                re[l] = r[l].mul_add(wc, re[l]);
+                im[l] = r[l].mul_add(ws, im[l]);
+            }
+            if let Some(k) = kept.as_deref_mut() {
+                k[t] = r;
+            }
+        }
+        if job.first_block + d < job.blocks {
+            for (l, st) in stats.iter_mut().enumerate() {
+                st.baseband.push((re[l], -im[l]));
+            }
+        }
+    }
+    for l in 0..LANES {
+        sum_sq[l] += ss[l];
+    }
+}
+
+fn residual_lanes<const C: usize>(
+    frames: Frames,
     fits: &[ToneFit],
     model: &ToneModel,
     keep: &[bool],
     kept: &mut [Vec<f64>],
-) -> Vec<ResidualStats> {
-    assert!(
-        fits.len() == channels.len()
-            && keep.len() == channels.len()
-            && kept.len() == channels.len()
-    );
-    let len = channels.first().map_or(0, |c| c.len());
-    let blocks = super::plans::smooth_len(len / DECIMATION);
-    let window = super::window::HANN.cached(blocks * DECIMATION);
-    let energy = super::kernels::dot(&window, &window);
-    let mut stats: Vec<ResidualStats> = channels
-        .iter()
-        .map(|_| ResidualStats {
-            sum_sq: 0.0,
-            baseband: Vec::with_capacity(blocks),
-            window_energy: energy,
-        })
-        .collect();
+    stats: &mut [ResidualStats],
+    window: &[f64],
+    blocks: usize,
+) {
+    let len = frames.len();
+    let nch = frames.channels();
+    let coefs: Vec<LaneCoefs<C>> = fits.chunks(LANES).map(LaneCoefs::new).collect();
+    let mut sum_sq = vec![[0.0; LANES]; frames.groups()];
+    let mut basis = BasisRows::<C>::new();
+    let mut mix = vec![(0.0, 0.0); FRAME_BLOCK];
+    let mut rows_kept = vec![[0.0; LANES]; FRAME_BLOCK];
+    for n0 in (0..len).step_by(FRAME_BLOCK) {
+        let m = FRAME_BLOCK.min(len - n0);
+        let rows = basis.fill(model, n0, m);
+        for (t, mx) in mix[..m].iter_mut().enumerate() {
+            let w = window.get(n0 + t).copied().unwrap_or(0.0);
+            *mx = (w * rows[t][0], w * rows[t][1]);
+        }
+        let job = ResidualBlock {
+            rows,
+            mix: &mix[..m],
+            first_block: n0 / DECIMATION,
+            blocks,
+        };
+        let block = frames.slice(n0..n0 + m);
+        for g in 0..frames.groups() {
+            let chans = g * LANES..(g * LANES + LANES).min(nch);
+            let keeping = keep[chans.clone()].iter().any(|k| *k);
+            residual_group(
+                block,
+                g,
+                &coefs[g],
+                &job,
+                &mut sum_sq[g],
+                &mut stats[chans.clone()],
+                keeping.then_some(&mut rows_kept[..m]),
+            );
+            if keeping {
+                for (l, c) in chans.enumerate() {
+                    if keep[c] {
+                        kept[c].extend(rows_kept[..m].iter().map(|r| r[l]));
+                    }
+                }
+            }
+        }
+    }
+    for (c, st) in stats.iter_mut().enumerate() {
+        st.sum_sq = sum_sq[c / LANES][c % LANES];
+    }
+}
+
+/// The residual pass of [`residual_frames`], channel by channel.
+#[allow(clippy::too_many_arguments)]
+fn residual_channels(
+    frames: Frames,
+    fits: &[ToneFit],
+    model: &ToneModel,
+    keep: &[bool],
+    kept: &mut [Vec<f64>],
+    stats: &mut [ResidualStats],
+    window: &[f64],
+    blocks: usize,
+) {
+    let len = frames.len();
+    let channels = super::frames::deinterleave(frames);
     let mut basis = BasisBlock::new(model.terms);
     let (mut wc, mut ws) = (vec![0.0; BLOCK], vec![0.0; BLOCK]);
     let mut r = vec![0.0; BLOCK];
@@ -389,7 +655,65 @@ pub fn residual_pass(
         }
         n0 += m;
     }
+}
+
+/// One pass over every channel of `frames`: the explicit residual
+/// `x − model`, with the basis generated once per frame for all channels.
+/// Keeps its sum of squares and its decimated baseband (see
+/// [`ResidualStats`]); channels with `keep[c]` also get the whole residual
+/// appended to `kept[c]`.
+///
+/// # Panics
+/// When `fits`, `keep` or `kept` do not have one entry per channel.
+pub fn residual_frames(
+    frames: Frames,
+    fits: &[ToneFit],
+    model: &ToneModel,
+    keep: &[bool],
+    kept: &mut [Vec<f64>],
+) -> Vec<ResidualStats> {
+    let nch = frames.channels();
+    assert!(fits.len() == nch && keep.len() == nch && kept.len() == nch);
+    let len = frames.len();
+    let blocks = super::plans::smooth_len(len / DECIMATION);
+    let window = super::window::HANN.cached(blocks * DECIMATION);
+    let energy = super::kernels::dot(&window, &window);
+    let mut stats: Vec<ResidualStats> = (0..nch)
+        .map(|_| ResidualStats {
+            sum_sq: 0.0,
+            baseband: Vec::with_capacity(blocks),
+            window_energy: energy,
+        })
+        .collect();
+    for (c, k) in kept.iter_mut().enumerate() {
+        if keep[c] {
+            k.reserve(len);
+        }
+    }
+    by_columns!(
+        model.terms,
+        residual_lanes(frames, fits, model, keep, kept, &mut stats, &window, blocks),
+        residual_channels(frames, fits, model, keep, kept, &mut stats, &window, blocks)
+    );
     stats
+}
+
+/// [`residual_frames`] over separate, equally long channels.
+///
+/// # Panics
+/// When the slices differ in length from each other or from `fits`/`keep`.
+pub fn residual_pass(
+    channels: &[&[f32]],
+    fits: &[ToneFit],
+    model: &ToneModel,
+    keep: &[bool],
+    kept: &mut [Vec<f64>],
+) -> Vec<ResidualStats> {
+    if channels.is_empty() {
+        return Vec::new();
+    }
+    let data = super::frames::interleave(channels);
+    residual_frames(Frames::new(&data, channels.len()), fits, model, keep, kept)
 }
 
 /// Result of a frequency estimate.
@@ -572,6 +896,77 @@ fn gauss_newton_step(
 #[cfg(test)]
 mod gram_tests {
     use super::*;
+
+    /// The multichannel kernels against the per-channel passes, on a
+    /// channel count that leaves the last lane group partly empty.
+    #[test]
+    fn lane_kernels_match_the_per_channel_passes() {
+        let (nch, len) = (11usize, 5_000usize);
+        let data: Vec<f32> = (0..nch * len)
+            .map(|i| {
+                let (n, c) = ((i / nch) as f64, (i % nch) as f64);
+                (0.3 / (1.0 + c) * (0.131 * n + c).sin()
+                    + 1e-3 * (0.262 * n).cos()
+                    + 1e-4 * (c + 1.0)
+                    + 1e-5 * ((n * 7.7 + c * 3.1).sin() * 1e4).sin()) as f32
+            })
+            .collect();
+        let frames = Frames::new(&data, nch);
+        for h in [1usize, 5, 8] {
+            let model = ToneModel::new(0.131 * 48_000.0 / (2.0 * PI), 48_000.0, len, h);
+            assert_eq!(model.terms, h);
+            let lanes = by_columns!(model.terms, project_lanes(frames, &model), unreachable!());
+            let plain = project_channels(frames, &model);
+            for (c, ((b1, s1), (b2, s2))) in lanes.iter().zip(&plain).enumerate() {
+                assert!((s1 - s2).abs() <= 1e-12 * s2, "h {h} channel {c} Σx²");
+                for (x, y) in b1.iter().zip(b2) {
+                    assert!(
+                        (x - y).abs() <= 1e-11 * s2.sqrt(),
+                        "h {h} channel {c}: {x} vs {y}"
+                    );
+                }
+            }
+            let fits = fit_frames(frames, &model).unwrap();
+            let keep: Vec<bool> = (0..nch).map(|c| c % 3 == 0).collect();
+            let blocks = super::super::plans::smooth_len(len / DECIMATION);
+            let window = super::super::window::HANN.cached(blocks * DECIMATION);
+            let run = |lane: bool| {
+                let mut kept = vec![Vec::new(); nch];
+                let mut stats = vec![ResidualStats::default(); nch];
+                if lane {
+                    by_columns!(
+                        model.terms,
+                        residual_lanes(
+                            frames, &fits, &model, &keep, &mut kept, &mut stats, &window, blocks
+                        ),
+                        unreachable!()
+                    );
+                } else {
+                    residual_channels(
+                        frames, &fits, &model, &keep, &mut kept, &mut stats, &window, blocks,
+                    );
+                }
+                (stats, kept)
+            };
+            let ((s1, k1), (s2, k2)) = (run(true), run(false));
+            for c in 0..nch {
+                assert!(
+                    (s1[c].sum_sq - s2[c].sum_sq).abs() <= 1e-9 * s2[c].sum_sq,
+                    "h {h} ch {c}"
+                );
+                assert_eq!(s1[c].baseband.len(), blocks);
+                assert_eq!(s2[c].baseband.len(), blocks);
+                let scale = s2[c].sum_sq.sqrt();
+                for (a, b) in s1[c].baseband.iter().zip(&s2[c].baseband) {
+                    assert!((a.0 - b.0).abs() <= 1e-9 * scale && (a.1 - b.1).abs() <= 1e-9 * scale);
+                }
+                assert_eq!(k1[c].len(), if keep[c] { len } else { 0 });
+                for (a, b) in k1[c].iter().zip(&k2[c]) {
+                    assert!((a - b).abs() <= 1e-12, "h {h} ch {c} kept residual");
+                }
+            }
+        }
+    }
 
     /// The closed form against the sample-by-sample sums.
     #[test]

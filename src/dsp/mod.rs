@@ -6,6 +6,7 @@
 //! values.
 
 pub mod fit;
+pub mod frames;
 pub mod freqs;
 pub mod kernels;
 pub mod level;

@@ -8,7 +8,7 @@ pub mod wav;
 
 pub use manifest::{CaptureEntry, ChannelEntry, Drive, Manifest, RUN_FORMAT};
 pub use read::ResultsFolder;
-pub use wav::{read_capture, write_capture, Capture, WavFormat};
+pub use wav::{read_capture, read_frames, write_capture, Capture, FrameCapture, WavFormat};
 
 use std::path::PathBuf;
 use thiserror::Error;

@@ -1,7 +1,9 @@
-//! Multichannel WAV captures: read whole captures (deinterleaved, full scale
-//! ±1.0) and write them in any of the run format's sample formats.
+//! Multichannel WAV captures: read whole captures (interleaved as stored, or
+//! deinterleaved; full scale ±1.0) and write them in any of the run format's
+//! sample formats.
 
 use super::RunError;
+use crate::dsp::frames::{deinterleave, Frames};
 use std::io::{Read, Seek, Write};
 use std::path::Path;
 
@@ -52,6 +54,34 @@ impl Capture {
     }
 }
 
+/// One capture as the file stores it: interleaved frames.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FrameCapture {
+    /// Sample rate in Hz.
+    pub sample_rate_hz: u32,
+    /// Samples per frame.
+    pub channels: usize,
+    /// Sample `c` of frame `n` at `data[n·channels + c]`, full scale ±1.0.
+    pub data: Vec<f32>,
+    /// Per channel, the largest absolute sample.
+    pub peaks: Vec<f32>,
+}
+
+impl FrameCapture {
+    /// A view of the frames.
+    pub fn frames(&self) -> Frames<'_> {
+        Frames::new(&self.data, self.channels)
+    }
+
+    /// The same capture, one vector per channel.
+    pub fn deinterleave(&self) -> Capture {
+        Capture {
+            sample_rate_hz: self.sample_rate_hz,
+            channels: deinterleave(self.frames()),
+        }
+    }
+}
+
 /// Read a capture from `path`, checking it against the manifest's channel
 /// count and sample rate. Every problem is reported with the file's path.
 pub fn read_capture(
@@ -59,8 +89,17 @@ pub fn read_capture(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<Capture, RunError> {
+    Ok(read_frames(path, channels, sample_rate_hz)?.deinterleave())
+}
+
+/// [`read_capture`], keeping the frames interleaved as stored.
+pub fn read_frames(
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+) -> Result<FrameCapture, RunError> {
     let file = std::fs::File::open(path).map_err(|e| RunError::io(path, e))?;
-    read_capture_from(
+    read_frames_from(
         std::io::BufReader::new(file),
         path,
         channels,
@@ -75,6 +114,16 @@ pub fn read_capture_from<R: Read>(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<Capture, RunError> {
+    Ok(read_frames_from(reader, path, channels, sample_rate_hz)?.deinterleave())
+}
+
+/// Like [`read_frames`] over any reader; `path` names it in messages.
+pub fn read_frames_from<R: Read>(
+    reader: R,
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+) -> Result<FrameCapture, RunError> {
     let bad = |message: String| RunError::Wav {
         path: path.to_path_buf(),
         message,
@@ -116,41 +165,65 @@ pub fn read_capture_from<R: Read>(
         }
     };
     // hound has read the header and stands at the first sample: read the
-    // data in blocks and decode them straight into the channel vectors.
+    // data in blocks and decode them straight into the frames.
     let block_align = usize::from(spec.bits_per_sample / 8) * channels;
     if usize::from(spec.bits_per_sample / 8) * 8 != usize::from(spec.bits_per_sample) {
         return Err(bad("sample size is not a whole number of bytes".into()));
     }
     let mut data = wav.into_inner();
-    let mut out: Vec<Vec<f32>> = (0..channels).map(|_| Vec::with_capacity(frames)).collect();
-    let frames_per_block = (1 << 16) / block_align.max(1) + 1;
-    let mut buf = vec![0u8; frames_per_block * block_align];
+    let mut out = vec![0.0f32; frames * channels];
+    // Per channel, the largest |sample| as bits (sign cleared): for finite
+    // floats the order of the bits is the order of the values, and infinity
+    // or NaN sort above every finite value.
+    let mut largest = vec![0u32; channels];
+    let frames_per_block = (1 << 18) / block_align.max(1) + 1;
+    let mut buf = match format {
+        SampleCoding::F32 => Vec::new(),
+        _ => vec![0u8; frames_per_block * block_align],
+    };
     let mut done = 0usize;
     while done < frames {
         let n = frames_per_block.min(frames - done);
-        let bytes = &mut buf[..n * block_align];
+        let dst = &mut out[done * channels..(done + n) * channels];
+        // 32-bit floats are read straight into the frames; other formats
+        // through a byte buffer.
+        let bytes = match format {
+            SampleCoding::F32 => bytemuck::cast_slice_mut::<f32, u8>(dst),
+            _ => &mut buf[..n * block_align],
+        };
         if let Err((e, got)) = read_full(&mut data, bytes) {
             return Err(bad(format!(
                 "truncated or unreadable after frame {} of {frames} ({e})",
                 done + got / block_align
             )));
         }
-        format
-            .decode(bytes, channels, &mut out)
-            .map_err(|(frame, channel, v)| {
-                bad(format!(
-                    "non-finite sample ({v}) at frame {} channel {}",
-                    done + frame,
-                    channel + 1
-                ))
-            })?;
+        format.decode(&buf[..buf.len().min(n * block_align)], dst);
+        for row in dst.chunks_exact(channels) {
+            for (m, v) in largest.iter_mut().zip(row) {
+                *m = (*m).max(v.to_bits() & 0x7fff_ffff);
+            }
+        }
+        if largest.iter().any(|m| *m >= NON_FINITE) {
+            let i = dst.iter().position(|v| !v.is_finite()).unwrap_or_default();
+            return Err(bad(format!(
+                "non-finite sample ({}) at frame {} channel {}",
+                dst[i],
+                done + i / channels,
+                i % channels + 1
+            )));
+        }
         done += n;
     }
-    Ok(Capture {
+    Ok(FrameCapture {
         sample_rate_hz,
-        channels: out,
+        channels,
+        data: out,
+        peaks: largest.into_iter().map(f32::from_bits).collect(),
     })
 }
+
+/// Bits of a float (sign cleared) at or above which it is infinite or NaN.
+const NON_FINITE: u32 = 0x7f80_0000;
 
 /// How the samples of a WAV file are stored.
 #[derive(Debug, Clone, Copy)]
@@ -162,49 +235,36 @@ enum SampleCoding {
 }
 
 impl SampleCoding {
-    /// Decode whole interleaved frames into the channel vectors; a
-    /// non-finite float is reported as `(frame, channel, value)`.
-    fn decode(
-        self,
-        bytes: &[u8],
-        channels: usize,
-        out: &mut [Vec<f32>],
-    ) -> Result<(), (usize, usize, f32)> {
-        let width = match self {
-            SampleCoding::I16 => 2,
-            SampleCoding::I24 => 3,
-            SampleCoding::F32 | SampleCoding::I32 => 4,
-        };
-        let frame_bytes = width * channels;
-        for c in 0..channels {
-            let dst = &mut out[c];
-            let samples = bytes
-                .chunks_exact(frame_bytes)
-                .map(|f| &f[c * width..c * width + width]);
-            match self {
-                SampleCoding::F32 => {
-                    for (i, b) in samples.enumerate() {
-                        let v = f32::from_le_bytes([b[0], b[1], b[2], b[3]]);
-                        if !v.is_finite() {
-                            return Err((i, c, v));
-                        }
-                        dst.push(v);
+    /// Decode the interleaved samples in `bytes` into `out`. 32-bit floats
+    /// are already in place (read into `out` as little-endian bytes), so
+    /// `bytes` is empty for them.
+    fn decode(self, bytes: &[u8], out: &mut [f32]) {
+        match self {
+            SampleCoding::F32 => {
+                if cfg!(target_endian = "big") {
+                    for v in out.iter_mut() {
+                        *v = f32::from_bits(u32::from_le(v.to_bits()));
                     }
                 }
-                SampleCoding::I16 => dst.extend(
-                    samples.map(|b| f32::from(i16::from_le_bytes([b[0], b[1]])) / 32_768.0),
-                ),
-                SampleCoding::I24 => dst.extend(samples.map(|b| {
+            }
+            SampleCoding::I16 => {
+                for (o, b) in out.iter_mut().zip(bytes.chunks_exact(2)) {
+                    *o = f32::from(i16::from_le_bytes([b[0], b[1]])) / 32_768.0;
+                }
+            }
+            SampleCoding::I24 => {
+                for (o, b) in out.iter_mut().zip(bytes.chunks_exact(3)) {
                     let v = i32::from_le_bytes([0, b[0], b[1], b[2]]) >> 8;
-                    v as f32 / 8_388_608.0
-                })),
-                SampleCoding::I32 => dst.extend(samples.map(|b| {
-                    (f64::from(i32::from_le_bytes([b[0], b[1], b[2], b[3]])) / 2_147_483_648.0)
-                        as f32
-                })),
+                    *o = v as f32 / 8_388_608.0;
+                }
+            }
+            SampleCoding::I32 => {
+                for (o, b) in out.iter_mut().zip(bytes.chunks_exact(4)) {
+                    let v = i32::from_le_bytes([b[0], b[1], b[2], b[3]]);
+                    *o = (f64::from(v) / 2_147_483_648.0) as f32;
+                }
             }
         }
-        Ok(())
     }
 }
 
