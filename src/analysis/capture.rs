@@ -118,9 +118,6 @@ pub fn analyze_capture_with(
                 config.max_harmonic,
             )
             .map_err(|e| format!("channel {}: {e}", d.channel))?;
-            if std::env::var_os("SEPTUM_DEBUG_GN").is_some() {
-                eprintln!("gn {}", est.iterations);
-            }
             (span, Some(est.model))
         }
         _ => (0..frames, None),

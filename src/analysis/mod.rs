@@ -12,7 +12,7 @@ pub mod steady;
 pub use capture::{analyze_capture, CaptureAnalysis, ChannelFit};
 
 use crate::dsp::{amplitude_to_dbfs, power_to_dbfs};
-use crate::run::{read_capture, read_frames, Manifest, RunError};
+use crate::run::{read_capture, read_frames_reusing, Manifest, RunError};
 use rayon::prelude::*;
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -249,12 +249,14 @@ pub fn analyze_run(
         .take(BAND_SOURCES)
         .map(|c| c.file.as_str())
         .collect();
+    // Each worker reads into the frames buffer of its previous capture.
     let captures = manifest
         .captures
         .par_iter()
-        .map(|entry| {
+        .map_init(Vec::new, |buffer, entry| {
             let path = manifest.capture_path(run_dir, entry);
-            let cap = read_frames(&path, nch, manifest.sample_rate_hz)?;
+            let cap =
+                read_frames_reusing(&path, nch, manifest.sample_rate_hz, std::mem::take(buffer))?;
             // Band-limited floors come from idle captures when there are
             // any, else from the victims of the first few drive captures.
             let need_bands =
@@ -262,6 +264,7 @@ pub fn analyze_run(
             let res =
                 capture::analyze_capture_with(&cap, &entry.file, entry.drive, config, need_bands)
                     .map_err(|message| AnalysisError::Capture { path, message });
+            *buffer = cap.data;
             progress();
             res
         })

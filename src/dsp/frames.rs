@@ -8,6 +8,7 @@
 //! them, so a capture never has to be deinterleaved.
 
 use std::ops::Range;
+use wide::f64x8;
 
 /// Channels handled side by side by the multichannel kernels.
 pub const LANES: usize = 8;
@@ -79,21 +80,29 @@ impl<'a> Frames<'a> {
     /// Channels `LANES·g ..` of frame `n` widened to f64; lanes past the
     /// last channel are 0.
     #[inline(always)]
-    pub(crate) fn lanes(&self, n: usize, g: usize) -> [f64; LANES] {
+    pub(crate) fn lanes(&self, n: usize, g: usize) -> f64x8 {
         let first = g * LANES;
         let row = &self.data[n * self.channels..(n + 1) * self.channels];
-        let mut out = [0.0; LANES];
+        let mut x = [0.0f32; LANES];
         if first + LANES <= self.channels {
-            let x: &[f32; LANES] = row[first..first + LANES].try_into().unwrap();
-            for l in 0..LANES {
-                out[l] = f64::from(x[l]);
-            }
+            x = row[first..first + LANES].try_into().unwrap();
         } else {
-            for (o, v) in out.iter_mut().zip(&row[first..]) {
-                *o = f64::from(*v);
-            }
+            x[..self.channels - first].copy_from_slice(&row[first..]);
         }
-        out
+        f64x8::new(x.map(f64::from))
+    }
+
+    /// Ask the processor to bring these frames into its caches ahead of use
+    /// (a hint; nothing on targets without a prefetch instruction).
+    #[inline]
+    pub(crate) fn prefetch(&self) {
+        #[cfg(target_arch = "x86_64")]
+        for line in self.data.chunks(16) {
+            use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T1};
+            // SAFETY: a prefetch is only a hint; it reads nothing, cannot
+            // fault, and the pointer is in bounds anyway.
+            unsafe { _mm_prefetch::<_MM_HINT_T1>(line.as_ptr().cast()) };
+        }
     }
 
     /// Groups of [`LANES`] channels (the last one may be partly empty).
@@ -143,6 +152,6 @@ mod tests {
         assert_eq!(deinterleave(f), vec![a.clone(), b.clone(), c.clone()]);
         assert_eq!(f.channel_range(1, 2..5), vec![-2.0, -3.0, -4.0]);
         assert_eq!(f.slice(3..4).data(), &[3.0, -3.0, 1.5]);
-        assert_eq!(f.lanes(4, 0)[..4], [4.0, -4.0, 2.0, 0.0]);
+        assert_eq!(f.lanes(4, 0).to_array()[..4], [4.0, -4.0, 2.0, 0.0]);
     }
 }

@@ -8,7 +8,9 @@ pub mod wav;
 
 pub use manifest::{CaptureEntry, ChannelEntry, Drive, Manifest, RUN_FORMAT};
 pub use read::ResultsFolder;
-pub use wav::{read_capture, read_frames, write_capture, Capture, FrameCapture, WavFormat};
+pub use wav::{
+    read_capture, read_frames, read_frames_reusing, write_capture, Capture, FrameCapture, WavFormat,
+};
 
 use std::path::PathBuf;
 use thiserror::Error;

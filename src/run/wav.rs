@@ -98,12 +98,24 @@ pub fn read_frames(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<FrameCapture, RunError> {
+    read_frames_reusing(path, channels, sample_rate_hz, Vec::new())
+}
+
+/// [`read_frames`] into `buffer`'s allocation (say, the `data` of the
+/// previous capture), which spares allocating and clearing it again.
+pub fn read_frames_reusing(
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+    buffer: Vec<f32>,
+) -> Result<FrameCapture, RunError> {
     let file = std::fs::File::open(path).map_err(|e| RunError::io(path, e))?;
-    read_frames_from(
+    read_frames_inner(
         std::io::BufReader::new(file),
         path,
         channels,
         sample_rate_hz,
+        buffer,
     )
 }
 
@@ -123,6 +135,16 @@ pub fn read_frames_from<R: Read>(
     path: &Path,
     channels: usize,
     sample_rate_hz: u32,
+) -> Result<FrameCapture, RunError> {
+    read_frames_inner(reader, path, channels, sample_rate_hz, Vec::new())
+}
+
+fn read_frames_inner<R: Read>(
+    reader: R,
+    path: &Path,
+    channels: usize,
+    sample_rate_hz: u32,
+    buffer: Vec<f32>,
 ) -> Result<FrameCapture, RunError> {
     let bad = |message: String| RunError::Wav {
         path: path.to_path_buf(),
@@ -171,7 +193,14 @@ pub fn read_frames_from<R: Read>(
         return Err(bad("sample size is not a whole number of bytes".into()));
     }
     let mut data = wav.into_inner();
-    let mut out = vec![0.0f32; frames * channels];
+    // Every element is overwritten below (or the read fails), so a reused
+    // buffer is only cut to length or extended.
+    let mut out = buffer;
+    if out.len() >= frames * channels {
+        out.truncate(frames * channels);
+    } else {
+        out.resize(frames * channels, 0.0);
+    }
     // Per channel, the largest |sample| as bits (sign cleared): for finite
     // floats the order of the bits is the order of the values, and infinity
     // or NaN sort above every finite value.
