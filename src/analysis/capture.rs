@@ -6,7 +6,7 @@ use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::dbfs_to_amplitude;
 use crate::dsp::fit::{
-    coarse_frequency, estimate_frequency, fit_frames, residual_frames, ToneModel, DECIMATION,
+    coarse_frequency, estimate_frequency_from, fit_frames, residual_frames, ToneModel, DECIMATION,
 };
 use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
@@ -110,12 +110,13 @@ pub fn analyze_capture_with(
                 .map_err(|e| format!("channel {}: {e}", d.channel))?;
             let span = steady_range(aggressor, fs, coarse)
                 .map_err(|e| format!("channel {} at {} Hz: {e}", d.channel, d.frequency_hz))?;
-            let est = estimate_frequency(
+            let est = estimate_frequency_from(
                 &aggressor[span.clone()],
                 fs,
                 d.frequency_hz,
                 config.frequency_search,
                 config.max_harmonic,
+                coarse,
             )
             .map_err(|e| format!("channel {}: {e}", d.channel))?;
             (span, Some(est.model))

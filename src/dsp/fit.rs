@@ -229,20 +229,26 @@ pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut
     residual.clear();
     residual.reserve(len);
     let mut basis = BasisBlock::new(model.terms);
+    let mut r = vec![0.0; BLOCK];
     let mut ss = 0.0;
     let mut n0 = 0;
     while n0 < len {
         let m = BLOCK.min(len - n0);
         basis.fill(model, n0, m);
-        for i in 0..m {
-            let mut v = fit.dc;
-            for k in 0..model.terms {
-                v += fit.cos[k] * basis.cos[k][i] + fit.sin[k] * basis.sin[k][i];
-            }
-            let r = f64::from(x[n0 + i]) - v;
-            ss += r * r;
-            residual.push(r);
+        let r = &mut r[..m];
+        widen(&x[n0..n0 + m], r);
+        for v in r.iter_mut() {
+            *v -= fit.dc;
         }
+        // Harmonic by harmonic over the block (vectorised along time).
+        for k in 0..model.terms {
+            let (a, b) = (fit.cos[k], fit.sin[k]);
+            for ((v, c), s) in r.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
+                *v -= a * c + b * s;
+            }
+        }
+        ss += dot(r, r);
+        residual.extend_from_slice(r);
         n0 += m;
     }
     ss
@@ -425,11 +431,17 @@ pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, Fit
     let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
         freq_hz: model.omega / (2.0 * PI),
     })?;
-    let proj = by_columns!(
-        model.terms,
-        project_lanes(frames, model),
+    // Side by side the lanes pay off from half a group of channels on;
+    // fewer channels are summed one by one, vectorised along time.
+    let proj = if frames.channels() < LANES / 2 {
         project_channels(frames, model)
-    );
+    } else {
+        by_columns!(
+            model.terms,
+            project_lanes(frames, model),
+            project_channels(frames, model)
+        )
+    };
     Ok(proj
         .into_iter()
         .map(|(b, ss)| {
@@ -793,9 +805,22 @@ pub fn estimate_frequency(
     search: f64,
     max_harmonic: usize,
 ) -> Result<FrequencyFit, FitError> {
-    let len = x.len();
     let f0 = coarse_frequency(x, sample_rate_hz, nominal_hz, search)?;
-    let mut model = ToneModel::new(f0, sample_rate_hz, len, max_harmonic);
+    estimate_frequency_from(x, sample_rate_hz, nominal_hz, search, max_harmonic, f0)
+}
+
+/// [`estimate_frequency`] from a known starting frequency `start_hz` (a
+/// coarse estimate of the same tone, say over a longer stretch).
+pub fn estimate_frequency_from(
+    x: &[f32],
+    sample_rate_hz: f64,
+    nominal_hz: f64,
+    search: f64,
+    max_harmonic: usize,
+    start_hz: f64,
+) -> Result<FrequencyFit, FitError> {
+    let len = x.len();
+    let mut model = ToneModel::new(start_hz, sample_rate_hz, len, max_harmonic);
     let scale = len as f64 / 2.0;
     let mut iterations = 0;
     // The joint solve gives the tone's coefficients along with the step; they
@@ -854,38 +879,16 @@ fn gauss_newton_step(
     for r in 0..q {
         g[r * p..r * p + q].copy_from_slice(&base[r * q..r * q + q]);
     }
-    let mut b = vec![0.0; p];
-    let mut basis = BasisBlock::new(model.terms);
-    let mut d = vec![0.0; BLOCK];
-    let mut xf = vec![0.0; BLOCK];
-    let mut n0 = 0;
-    while n0 < len {
-        let m = BLOCK.min(len - n0);
-        basis.fill(model, n0, m);
-        let d = &mut d[..m];
-        d.fill(0.0);
-        for k in 0..model.terms {
-            let (a, bk) = ((k + 1) as f64 * -fit.cos[k], (k + 1) as f64 * fit.sin[k]);
-            for ((v, c), s) in d.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
-                *v += a * s + bk * c;
-            }
-        }
-        for (i, v) in d.iter_mut().enumerate() {
-            *v *= ((n0 + i) as f64 - model.center) / scale;
-        }
-        let xf = &mut xf[..m];
-        widen(&x[n0..n0 + m], xf);
-        b[0] += sum(xf);
-        g[q] += sum(d);
-        for r in 1..q {
-            let col = &basis.column(r).unwrap()[..m];
-            b[r] += dot(xf, col);
-            g[r * p + q] += dot(d, col);
-        }
-        b[q] += dot(xf, d);
-        g[q * p + q] += dot(d, d);
-        n0 += m;
+    let sums = by_columns!(
+        model.terms,
+        newton_sums(x, model, fit, scale),
+        newton_sums_columns(x, model, fit, scale)
+    );
+    let b = sums.xphi;
+    for (r, v) in sums.dphi.iter().enumerate() {
+        g[r * p + q] = *v;
     }
+    g[q * p + q] = sums.dd;
     for r in 0..q {
         g[q * p + r] = g[r * p + q];
     }
@@ -897,9 +900,165 @@ fn gauss_newton_step(
     Ok((theta, delta))
 }
 
+/// Sums of one Gauss-Newton step with the derivative column `d`: `Σx·φ_r`
+/// over the basis followed by `Σx·d`, `Σd·φ_r` over the basis, and `Σd·d`.
+struct NewtonSums {
+    xphi: Vec<f64>,
+    dphi: Vec<f64>,
+    dd: f64,
+}
+
+/// The derivative column's coefficients: `d = t/scale · Σ_k (a_k·sin kωt + b_k·cos kωt)`.
+fn derivative_coefs(fit: &ToneFit, terms: usize) -> (Vec<f64>, Vec<f64>) {
+    (
+        (0..terms).map(|k| (k + 1) as f64 * -fit.cos[k]).collect(),
+        (0..terms).map(|k| (k + 1) as f64 * fit.sin[k]).collect(),
+    )
+}
+
+/// [`NewtonSums`] in one pass, eight samples at a time.
+fn newton_sums<const C: usize>(
+    x: &[f32],
+    model: &ToneModel,
+    fit: &ToneFit,
+    scale: f64,
+) -> NewtonSums {
+    let len = x.len();
+    let (a, bc) = derivative_coefs(fit, C / 2);
+    let mut basis = BasisBlock::new(C / 2);
+    let (mut x1, mut d1) = (f64x8::ZERO, f64x8::ZERO);
+    let (mut xd, mut dd) = (f64x8::ZERO, f64x8::ZERO);
+    let (mut xp, mut dp) = ([f64x8::ZERO; C], [f64x8::ZERO; C]);
+    let lane = f64x8::new([0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0]);
+    // Basis rows are BLOCK long (a multiple of LANES), so eight values can
+    // always be loaded; past the block's end they are stale and masked out.
+    let load = |v: &[f64], i: usize| f64x8::new(v[i..i + LANES].try_into().unwrap());
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for i in (0..m).step_by(LANES) {
+            let n = LANES.min(m - i);
+            let mut xs = [0.0; LANES];
+            let mut mask = [0.0; LANES];
+            for ((o, k), v) in xs
+                .iter_mut()
+                .zip(mask.iter_mut())
+                .zip(&x[n0 + i..n0 + i + n])
+            {
+                *o = f64::from(*v);
+                *k = 1.0;
+            }
+            let (xv, mask) = (f64x8::new(xs), f64x8::new(mask));
+            let mut dv = f64x8::ZERO;
+            let mut cs = [f64x8::ZERO; C];
+            for k in 0..C / 2 {
+                let (c, s) = (load(&basis.cos[k], i) * mask, load(&basis.sin[k], i) * mask);
+                dv = s.mul_add(f64x8::splat(a[k]), dv);
+                dv = c.mul_add(f64x8::splat(bc[k]), dv);
+                cs[2 * k] = c;
+                cs[2 * k + 1] = s;
+            }
+            let t = (lane + f64x8::splat((n0 + i) as f64 - model.center)) / f64x8::splat(scale);
+            let dv = dv * t;
+            x1 += xv;
+            d1 += dv;
+            xd = xv.mul_add(dv, xd);
+            dd = dv.mul_add(dv, dd);
+            for r in 0..C {
+                xp[r] = xv.mul_add(cs[r], xp[r]);
+                dp[r] = dv.mul_add(cs[r], dp[r]);
+            }
+        }
+        n0 += m;
+    }
+    let sum = |v: f64x8| v.reduce_add();
+    let mut xphi = vec![sum(x1)];
+    xphi.extend(xp.iter().map(|v| sum(*v)));
+    xphi.push(sum(xd));
+    let mut dphi = vec![sum(d1)];
+    dphi.extend(dp.iter().map(|v| sum(*v)));
+    NewtonSums {
+        xphi,
+        dphi,
+        dd: sum(dd),
+    }
+}
+
+/// [`newton_sums`] for any number of harmonics, column by column.
+fn newton_sums_columns(x: &[f32], model: &ToneModel, fit: &ToneFit, scale: f64) -> NewtonSums {
+    let len = x.len();
+    let q = model.params();
+    let (a, bc) = derivative_coefs(fit, model.terms);
+    let mut xphi = vec![0.0; q + 1];
+    let mut dphi = vec![0.0; q];
+    let mut dd = 0.0;
+    let mut basis = BasisBlock::new(model.terms);
+    let mut d = vec![0.0; BLOCK];
+    let mut xf = vec![0.0; BLOCK];
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        let d = &mut d[..m];
+        d.fill(0.0);
+        for k in 0..model.terms {
+            for ((v, c), s) in d.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
+                *v += a[k] * s + bc[k] * c;
+            }
+        }
+        for (i, v) in d.iter_mut().enumerate() {
+            *v *= ((n0 + i) as f64 - model.center) / scale;
+        }
+        let xf = &mut xf[..m];
+        widen(&x[n0..n0 + m], xf);
+        xphi[0] += sum(xf);
+        dphi[0] += sum(d);
+        for r in 1..q {
+            let col = &basis.column(r).unwrap()[..m];
+            xphi[r] += dot(xf, col);
+            dphi[r] += dot(d, col);
+        }
+        xphi[q] += dot(xf, d);
+        dd += dot(d, d);
+        n0 += m;
+    }
+    NewtonSums { xphi, dphi, dd }
+}
+
 #[cfg(test)]
 mod gram_tests {
     use super::*;
+
+    /// The one-pass Gauss-Newton sums against the column-by-column ones.
+    #[test]
+    fn newton_sums_match_the_column_sums() {
+        let len = 5_003;
+        let x: Vec<f32> = (0..len)
+            .map(|n| (0.4 * (0.0911 * n as f64 + 0.3).cos() + 1e-3 * (0.2 * n as f64).sin()) as f32)
+            .collect();
+        for h in [1usize, 5, 8] {
+            let model = ToneModel::new(0.0912 * 48_000.0 / (2.0 * PI), 48_000.0, len, h);
+            let fit = fit_tones(&[&x], &model).unwrap().remove(0);
+            let scale = len as f64 / 2.0;
+            let one = by_columns!(h, newton_sums(&x, &model, &fit, scale), unreachable!());
+            let cols = newton_sums_columns(&x, &model, &fit, scale);
+            let close = |a: f64, b: f64| (a - b).abs() <= 1e-10 * (1.0 + b.abs());
+            assert!(close(one.dd, cols.dd), "h {h}: {} vs {}", one.dd, cols.dd);
+            for (a, b) in one
+                .xphi
+                .iter()
+                .zip(&cols.xphi)
+                .chain(one.dphi.iter().zip(&cols.dphi))
+            {
+                assert!(close(*a, *b), "h {h}: {a} vs {b}");
+            }
+            assert_eq!(
+                (one.xphi.len(), one.dphi.len()),
+                (cols.xphi.len(), cols.dphi.len())
+            );
+        }
+    }
 
     /// The multichannel kernels against the per-channel passes, on a
     /// channel count that leaves the last lane group partly empty.
