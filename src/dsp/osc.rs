@@ -2,8 +2,11 @@
 //! `k = 1..=h` over a block of samples.
 //!
 //! Each block starts from exact values (one `sin_cos` call) and advances by a
-//! rotating phasor; harmonics are powers of the fundamental phasor. Blocks are
+//! rotating phasor (32 values, then four interleaved vector recurrences with
+//! step `e^{j32ω}`); harmonics are powers of the fundamental phasor. Blocks are
 //! short, so the recurrence's rounding never accumulates beyond ~1e-13.
+
+use wide::f64x8;
 
 /// Samples per oscillator block; also the block length of the fit passes.
 pub const BLOCK: usize = 1024;
@@ -26,36 +29,67 @@ pub fn fill_harmonics(
     if h == 0 || len == 0 {
         return;
     }
-    // Fundamental: the first LANES values by recurrence from an exact start,
-    // then LANES independent recurrences with step w^LANES (vectorisable).
+    // Fundamental: the first SPAN values by recurrence from an exact start,
+    // then SPAN/LANES independent vector recurrences with step w^SPAN.
     const LANES: usize = 8;
+    const SPAN: usize = 4 * LANES;
     let (s0, c0) = (omega * (n0 as f64 - center)).sin_cos();
     let (ws, wc) = omega.sin_cos();
-    let (c1, s1) = (&mut cos[0], &mut sin[0]);
-    let (mut zr, mut zi) = (c0, s0);
-    for m in 0..LANES.min(len) {
-        c1[m] = zr;
-        s1[m] = zi;
-        let nr = zr * wc - zi * ws;
-        zi = zr * ws + zi * wc;
-        zr = nr;
+    {
+        let (c1, s1) = (&mut cos[0], &mut sin[0]);
+        let (mut zr, mut zi) = (c0, s0);
+        for m in 0..SPAN.min(len) {
+            c1[m] = zr;
+            s1[m] = zi;
+            let nr = zr * wc - zi * ws;
+            zi = zr * ws + zi * wc;
+            zr = nr;
+        }
+        let (ls, lc) = (omega * SPAN as f64).sin_cos();
+        let (ls, lc) = (f64x8::splat(ls), f64x8::splat(lc));
+        let mut m = SPAN;
+        while m + LANES <= len {
+            let pr = f64x8::new(c1[m - SPAN..m - SPAN + LANES].try_into().unwrap());
+            let pi = f64x8::new(s1[m - SPAN..m - SPAN + LANES].try_into().unwrap());
+            c1[m..m + LANES].copy_from_slice((pr * lc - pi * ls).as_array());
+            s1[m..m + LANES].copy_from_slice((pr * ls + pi * lc).as_array());
+            m += LANES;
+        }
+        let (ls, lc) = (ls.as_array()[0], lc.as_array()[0]);
+        for m in m..len {
+            let (pr, pi) = (c1[m - SPAN], s1[m - SPAN]);
+            c1[m] = pr * lc - pi * ls;
+            s1[m] = pr * ls + pi * lc;
+        }
     }
-    let (ls, lc) = (omega * LANES as f64).sin_cos();
-    for m in LANES..len {
-        let (pr, pi) = (c1[m - LANES], s1[m - LANES]);
-        c1[m] = pr * lc - pi * ls;
-        s1[m] = pr * ls + pi * lc;
+    // Harmonics: powers of the fundamental, eight samples at a time with
+    // the running power held in registers.
+    let (fund_c, rest_c) = cos.split_at_mut(1);
+    let (fund_s, rest_s) = sin.split_at_mut(1);
+    let (fc, fs) = (&fund_c[0][..len], &fund_s[0][..len]);
+    let mut m = 0;
+    while m + LANES <= len {
+        let c1 = f64x8::new(fc[m..m + LANES].try_into().unwrap());
+        let s1 = f64x8::new(fs[m..m + LANES].try_into().unwrap());
+        let (mut ck, mut sk) = (c1, s1);
+        for (oc, os) in rest_c.iter_mut().zip(rest_s.iter_mut()) {
+            let nc = ck * c1 - sk * s1;
+            sk = ck * s1 + sk * c1;
+            ck = nc;
+            oc[m..m + LANES].copy_from_slice(ck.as_array());
+            os[m..m + LANES].copy_from_slice(sk.as_array());
+        }
+        m += LANES;
     }
-    // Harmonics: powers of the fundamental, sample by sample.
-    for k in 1..h {
-        let (lo_c, hi_c) = cos.split_at_mut(k);
-        let (lo_s, hi_s) = sin.split_at_mut(k);
-        let (pc, ps) = (&lo_c[k - 1][..len], &lo_s[k - 1][..len]);
-        let (fc, fs) = (&lo_c[0][..len], &lo_s[0][..len]);
-        let (oc, os) = (&mut hi_c[0][..len], &mut hi_s[0][..len]);
-        for m in 0..len {
-            oc[m] = pc[m] * fc[m] - ps[m] * fs[m];
-            os[m] = pc[m] * fs[m] + ps[m] * fc[m];
+    for m in m..len {
+        let (c1, s1) = (fc[m], fs[m]);
+        let (mut ck, mut sk) = (c1, s1);
+        for (oc, os) in rest_c.iter_mut().zip(rest_s.iter_mut()) {
+            let nc = ck * c1 - sk * s1;
+            sk = ck * s1 + sk * c1;
+            ck = nc;
+            oc[m] = ck;
+            os[m] = sk;
         }
     }
 }
