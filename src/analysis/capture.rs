@@ -64,8 +64,10 @@ pub struct CaptureAnalysis {
     pub channels: Vec<ChannelFit>,
     /// SINAD, THD, SFDR, ENOB and clock figures of the driven channel.
     pub drive_quality: Option<DriveQuality>,
-    /// Spectra of the analysed span (drive captures): the aggressor's and the
-    /// victim's with the strongest tone, as `(channel, spectrum)`.
+    /// Spectra of the analysed span: the aggressor's and the victim's with
+    /// the strongest tone, as `(channel, spectrum)`; filled by
+    /// [`spectra_of`] for the captures that hold a frequency's worst pair,
+    /// empty otherwise.
     #[serde(skip)]
     pub spectra: Vec<(u32, Spectrum)>,
 }
@@ -217,7 +219,6 @@ pub fn analyze_capture_with(
             })
             .collect(),
     };
-    let mut spectra = Vec::new();
     let mut quality = None;
     if let (Some(d), Some(m), Some(aggressor)) = (drive, &model, &aggressor) {
         quality = drive_quality(
@@ -228,20 +229,6 @@ pub fn analyze_capture_with(
             m.freq_hz(fs),
             config.jitter_s,
         );
-        let loudest = channels
-            .iter()
-            .filter(|c| c.channel != d.channel)
-            .max_by(|a, b| a.amplitude.total_cmp(&b.amplitude))
-            .map(|c| c.channel);
-        if let Some(s) = log_spectrum(&aggressor[span.clone()], fs, SPECTRUM_BUCKETS) {
-            spectra.push((d.channel, s));
-        }
-        if let Some(ch) = loudest {
-            let victim = steady.channel(ch as usize - 1);
-            if let Some(s) = log_spectrum(&victim, fs, SPECTRUM_BUCKETS) {
-                spectra.push((ch, s));
-            }
-        }
     }
     Ok(CaptureAnalysis {
         file: file.to_string(),
@@ -252,6 +239,32 @@ pub fn analyze_capture_with(
         tone_hz: model.map(|m: ToneModel| m.freq_hz(fs)),
         channels,
         drive_quality: quality,
-        spectra,
+        spectra: Vec::new(),
     })
+}
+
+/// The spectra of `analysis`'s span (its aggressor's, and that of the
+/// victim with the strongest tone) from the capture's frames. They are
+/// kept for the captures that hold a frequency's worst pair.
+pub fn spectra_of(capture: &FrameCapture, analysis: &CaptureAnalysis) -> Vec<(u32, Spectrum)> {
+    let mut spectra = Vec::new();
+    let Some(d) = analysis.drive else {
+        return spectra;
+    };
+    let fs = f64::from(capture.sample_rate_hz);
+    let span = analysis.span_start..analysis.span_start + analysis.span_frames;
+    let steady = capture.frames().slice(span);
+    let loudest = analysis
+        .channels
+        .iter()
+        .filter(|c| c.channel != d.channel)
+        .max_by(|a, b| a.amplitude.total_cmp(&b.amplitude))
+        .map(|c| c.channel);
+    for ch in std::iter::once(d.channel).chain(loudest) {
+        let x = steady.channel(ch as usize - 1);
+        if let Some(s) = log_spectrum(&x, fs, SPECTRUM_BUCKETS) {
+            spectra.push((ch, s));
+        }
+    }
+    spectra
 }

@@ -12,7 +12,7 @@ pub mod steady;
 pub use capture::{analyze_capture, CaptureAnalysis, ChannelFit};
 
 use crate::dsp::{amplitude_to_dbfs, power_to_dbfs};
-use crate::run::{read_capture, read_frames_reusing, Manifest, RunError};
+use crate::run::{read_capture, read_frames, read_frames_reusing, Manifest, RunError};
 use rayon::prelude::*;
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -287,6 +287,31 @@ pub fn analyze_run(
         .collect::<Result<Vec<_>, _>>()?;
     let mut results = assemble(manifest, config.clone(), captures);
     results.common = common;
+    // Spectra for the reports: only the capture of each frequency's worst
+    // pair, read again (one capture per frequency rather than two spectra
+    // for every capture).
+    let worst: Vec<usize> = results
+        .per_frequency
+        .iter()
+        .filter_map(|f| {
+            results
+                .captures
+                .iter()
+                .position(|c| c.file == f.worst.capture)
+        })
+        .collect();
+    let spectra: Vec<(usize, Vec<(u32, crate::dsp::spectrum::Spectrum)>)> = worst
+        .par_iter()
+        .map(|&i| {
+            let analysis = &results.captures[i];
+            let path = run_dir.join(&analysis.file);
+            let cap = read_frames(&path, nch, results.manifest.sample_rate_hz)?;
+            Ok((i, capture::spectra_of(&cap, analysis)))
+        })
+        .collect::<Result<_, AnalysisError>>()?;
+    for (i, s) in spectra {
+        results.captures[i].spectra = s;
+    }
     Ok(results)
 }
 

@@ -9,7 +9,7 @@
 use wide::f64x8;
 
 /// Samples per oscillator block; also the block length of the fit passes.
-pub const BLOCK: usize = 1024;
+pub const BLOCK: usize = 256;
 
 /// Fill `cos[k-1][m]` and `sin[k-1][m]` with `cos(k·ω·(n0 + m − center))` and
 /// `sin(…)` for `m < len` and `k = 1..=cos.len()`.
