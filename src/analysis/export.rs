@@ -248,12 +248,12 @@ fn write_coupling(r: &RunResults, dir: &Path) -> Result<(), RunError> {
     let header = std::iter::once("aggressor".to_string()).chain((1..=n).map(|v| v.to_string()));
     let mut aggressors: Vec<u32> = r.coupling.iter().map(|c| c.aggressor).collect();
     aggressors.dedup();
+    let lookup = crate::run::PairLookup::new(&r.coupling, |c| (0.0, c.aggressor, c.victim));
     let rows = aggressors.into_iter().map(|a| {
         std::iter::once(a.to_string())
             .chain((1..=n).map(|v| {
-                r.coupling
-                    .iter()
-                    .find(|c| c.aggressor == a && c.victim == v)
+                lookup
+                    .get(0.0, a, v)
                     .map_or_else(String::new, |c| c.mechanism.label().to_string())
             }))
             .collect()
@@ -277,10 +277,12 @@ fn write_leakage(r: &RunResults, frequency_hz: f64, path: &Path) -> Result<(), R
         a.dedup();
         a
     };
+    let lookup = r.pair_lookup();
     let rows = aggressors.into_iter().map(|a| {
         std::iter::once(a.to_string())
             .chain((1..=n).map(|v| {
-                r.pair(frequency_hz, a, v)
+                lookup
+                    .get(frequency_hz, a, v)
                     .map_or_else(String::new, |p| format!("{:.4}", p.separation_db))
             }))
             .collect()

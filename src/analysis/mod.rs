@@ -225,6 +225,11 @@ pub struct RunResults {
 }
 
 impl RunResults {
+    /// The pairs indexed by (frequency, aggressor, victim), for many lookups.
+    pub fn pair_lookup(&self) -> crate::run::PairLookup<'_, Pair> {
+        crate::run::PairLookup::new(&self.pairs, |p| (p.frequency_hz, p.aggressor, p.victim))
+    }
+
     /// The pair at (frequency, aggressor, victim), if measured.
     pub fn pair(&self, frequency_hz: f64, aggressor: u32, victim: u32) -> Option<&Pair> {
         self.pairs.iter().find(|p| {

@@ -66,6 +66,7 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
     }
     println!("{t}\n");
     if m.channels.len() <= 16 {
+        let lookup = r.pair_lookup();
         for f in m.frequencies() {
             println!("Separation at {f} Hz (dB; rows: aggressor, columns: victim)");
             let n = m.channels.len() as u32;
@@ -82,7 +83,8 @@ pub fn print(r: &RunResults, run_dir: &Path, out: &Path) {
                 }
                 let mut row = vec![a.to_string()];
                 row.extend((1..=n).map(|v| {
-                    r.pair(f, a, v)
+                    lookup
+                        .get(f, a, v)
                         .map_or("-".into(), |p| separation(p.separation_db, p.floor_limited))
                 }));
                 t.add_row(row);

@@ -93,6 +93,7 @@ fn heat_t(v: f64, lo: f64, hi: f64) -> f64 {
 /// The leakage matrix at `frequency_hz`: rows aggressors, columns victims,
 /// separation in each cell; lower bounds hatched and marked "≥".
 pub fn heatmap(r: &ResultsFolder, frequency_hz: f64, range: (f64, f64), id: &str) -> String {
+    let lookup = r.pair_lookup();
     let n = r.channel_count() as u32;
     let aggressors: Vec<u32> = (1..=n)
         .filter(|&a| {
@@ -152,7 +153,7 @@ pub fn heatmap(r: &ResultsFolder, frequency_hz: f64, range: (f64, f64), id: &str
                 s += &cell("#e9e9e6", "cell diag");
                 continue;
             }
-            let Some(p) = r.pair(frequency_hz, a, v) else {
+            let Some(p) = lookup.get(frequency_hz, a, v) else {
                 s += &cell("#ffffff", "cell missing");
                 continue;
             };

@@ -2,11 +2,13 @@
 //! multichannel WAV captures) and the results folder (CSV and JSON).
 
 pub mod manifest;
+pub mod pairindex;
 pub mod read;
 pub mod results;
 pub mod wav;
 
 pub use manifest::{CaptureEntry, ChannelEntry, Drive, Manifest, RUN_FORMAT};
+pub use pairindex::PairLookup;
 pub use read::ResultsFolder;
 pub use wav::{
     read_capture, read_frames, read_frames_reusing, write_capture, Capture, FrameCapture, WavFormat,

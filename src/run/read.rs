@@ -459,6 +459,11 @@ impl ResultsFolder {
         f
     }
 
+    /// The pairs indexed by (frequency, aggressor, victim), for many lookups.
+    pub fn pair_lookup(&self) -> super::PairLookup<'_, PairRow> {
+        super::PairLookup::new(&self.pairs, |p| (p.frequency_hz, p.aggressor, p.victim))
+    }
+
     /// The pair at (frequency, aggressor, victim).
     pub fn pair(&self, frequency_hz: f64, aggressor: u32, victim: u32) -> Option<&PairRow> {
         self.pairs.iter().find(|p| {

@@ -203,13 +203,14 @@ pub fn compare(
     let keep = |p: &PairRow| channels.contains(&p.aggressor) && channels.contains(&p.victim);
     let mut pairs = Vec::new();
     let mut missing_now = Vec::new();
+    let lookup = current.pair_lookup();
     for &(fc, fb) in &freqs {
         for b in baseline
             .pairs
             .iter()
             .filter(|p| p.frequency_hz == fb && keep(p))
         {
-            match current.pair(fc, b.aggressor, b.victim) {
+            match lookup.get(fc, b.aggressor, b.victim) {
                 Some(c) => pairs.push(pair_drift(c, b, tolerance_db)),
                 None => missing_now.push((fb, b.aggressor, b.victim)),
             }
