@@ -400,8 +400,47 @@ fn project_channels(frames: Frames, model: &ToneModel) -> Vec<(Vec<f64>, f64)> {
     out
 }
 
+/// The projections of [`project_channels`], eight samples at a time along
+/// time (for few channels, where side-by-side lanes would stay empty).
+fn project_along<const C: usize>(frames: Frames, model: &ToneModel) -> Vec<(Vec<f64>, f64)> {
+    let len = frames.len();
+    let channels = super::frames::deinterleave(frames);
+    let mut basis = BasisBlock::new(C / 2);
+    // BLOCK is a multiple of LANES; past a short last block the samples are
+    // zero, so the stale basis values there add nothing.
+    let mut xf = vec![0.0; BLOCK];
+    let mut acc = vec![(f64x8::ZERO, f64x8::ZERO, [f64x8::ZERO; C]); channels.len()];
+    let load = |v: &[f64], i: usize| f64x8::new(v[i..i + LANES].try_into().unwrap());
+    let mut n0 = 0;
+    while n0 < len {
+        let m = BLOCK.min(len - n0);
+        basis.fill(model, n0, m);
+        for (x, (s1, sq, pr)) in channels.iter().zip(acc.iter_mut()) {
+            widen(&x[n0..n0 + m], &mut xf[..m]);
+            xf[m..].fill(0.0);
+            for i in (0..m).step_by(LANES) {
+                let xv = load(&xf, i);
+                *s1 += xv;
+                *sq = xv.mul_add(xv, *sq);
+                for k in 0..C / 2 {
+                    pr[2 * k] = xv.mul_add(load(&basis.cos[k], i), pr[2 * k]);
+                    pr[2 * k + 1] = xv.mul_add(load(&basis.sin[k], i), pr[2 * k + 1]);
+                }
+            }
+        }
+        n0 += m;
+    }
+    acc.iter()
+        .map(|(s1, sq, pr)| {
+            let mut b = vec![s1.reduce_add()];
+            b.extend(pr.iter().map(|v| v.reduce_add()));
+            (b, sq.reduce_add())
+        })
+        .collect()
+}
+
 /// Call `$f::<2·terms>` for the harmonic counts the kernels are built for
-/// (up to 8); more harmonics take `$fallback`, the per-channel passes.
+/// (up to 10); more harmonics take `$fallback`, the per-channel passes.
 macro_rules! by_columns {
     ($terms:expr, $f:ident ( $($arg:expr),* ), $fallback:expr) => {
         match $terms {
@@ -413,6 +452,8 @@ macro_rules! by_columns {
             6 => $f::<12>($($arg),*),
             7 => $f::<14>($($arg),*),
             8 => $f::<16>($($arg),*),
+            9 => $f::<18>($($arg),*),
+            10 => $f::<20>($($arg),*),
             _ => $fallback,
         }
     };
@@ -434,7 +475,11 @@ pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, Fit
     // Side by side the lanes pay off from half a group of channels on;
     // fewer channels are summed one by one, vectorised along time.
     let proj = if frames.channels() < LANES / 2 {
-        project_channels(frames, model)
+        by_columns!(
+            model.terms,
+            project_along(frames, model),
+            project_channels(frames, model)
+        )
     } else {
         by_columns!(
             model.terms,
@@ -930,6 +975,7 @@ fn newton_sums<const C: usize>(
     let (mut xd, mut dd) = (f64x8::ZERO, f64x8::ZERO);
     let (mut xp, mut dp) = ([f64x8::ZERO; C], [f64x8::ZERO; C]);
     let lane = f64x8::new([0.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0]);
+    let inv_scale = f64x8::splat(1.0 / scale);
     // Basis rows are BLOCK long (a multiple of LANES), so eight values can
     // always be loaded; past the block's end they are stale and masked out.
     let load = |v: &[f64], i: usize| f64x8::new(v[i..i + LANES].try_into().unwrap());
@@ -937,29 +983,20 @@ fn newton_sums<const C: usize>(
     while n0 < len {
         let m = BLOCK.min(len - n0);
         basis.fill(model, n0, m);
-        for i in (0..m).step_by(LANES) {
-            let n = LANES.min(m - i);
-            let mut xs = [0.0; LANES];
-            let mut mask = [0.0; LANES];
-            for ((o, k), v) in xs
-                .iter_mut()
-                .zip(mask.iter_mut())
-                .zip(&x[n0 + i..n0 + i + n])
-            {
-                *o = f64::from(*v);
-                *k = 1.0;
-            }
-            let (xv, mask) = (f64x8::new(xs), f64x8::new(mask));
+        let mut chunk = |i: usize, xv: f64x8, mask: Option<f64x8>| {
             let mut dv = f64x8::ZERO;
             let mut cs = [f64x8::ZERO; C];
             for k in 0..C / 2 {
-                let (c, s) = (load(&basis.cos[k], i) * mask, load(&basis.sin[k], i) * mask);
+                let (mut c, mut s) = (load(&basis.cos[k], i), load(&basis.sin[k], i));
+                if let Some(mask) = mask {
+                    (c, s) = (c * mask, s * mask);
+                }
                 dv = s.mul_add(f64x8::splat(a[k]), dv);
                 dv = c.mul_add(f64x8::splat(bc[k]), dv);
                 cs[2 * k] = c;
                 cs[2 * k + 1] = s;
             }
-            let t = (lane + f64x8::splat((n0 + i) as f64 - model.center)) / f64x8::splat(scale);
+            let t = (lane + f64x8::splat((n0 + i) as f64 - model.center)) * inv_scale;
             let dv = dv * t;
             x1 += xv;
             d1 += dv;
@@ -969,6 +1006,19 @@ fn newton_sums<const C: usize>(
                 xp[r] = xv.mul_add(cs[r], xp[r]);
                 dp[r] = dv.mul_add(cs[r], dp[r]);
             }
+        };
+        let full = m / LANES * LANES;
+        for i in (0..full).step_by(LANES) {
+            let xa: [f32; LANES] = x[n0 + i..n0 + i + LANES].try_into().unwrap();
+            chunk(i, f64x8::new(xa.map(f64::from)), None);
+        }
+        if full < m {
+            let (mut xs, mut mask) = ([0.0; LANES], [0.0; LANES]);
+            for (j, v) in x[n0 + full..n0 + m].iter().enumerate() {
+                xs[j] = f64::from(*v);
+                mask[j] = 1.0;
+            }
+            chunk(full, f64x8::new(xs), Some(f64x8::new(mask)));
         }
         n0 += m;
     }
@@ -1075,12 +1125,18 @@ mod gram_tests {
             })
             .collect();
         let frames = Frames::new(&data, nch);
-        for h in [1usize, 5, 8] {
+        for h in [1usize, 5, 9] {
             let model = ToneModel::new(0.131 * 48_000.0 / (2.0 * PI), 48_000.0, len, h);
             assert_eq!(model.terms, h);
             let lanes = by_columns!(model.terms, project_lanes(frames, &model), unreachable!());
             let plain = project_channels(frames, &model);
-            for (c, ((b1, s1), (b2, s2))) in lanes.iter().zip(&plain).enumerate() {
+            let along = by_columns!(model.terms, project_along(frames, &model), unreachable!());
+            for (c, ((b1, s1), (b2, s2))) in lanes
+                .iter()
+                .chain(&along)
+                .zip(plain.iter().chain(&plain))
+                .enumerate()
+            {
                 assert!((s1 - s2).abs() <= 1e-12 * s2, "h {h} channel {c} Σx²");
                 for (x, y) in b1.iter().zip(b2) {
                     assert!(
