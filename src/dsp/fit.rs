@@ -565,14 +565,13 @@ fn residual_group<const C: usize, const KEEP: bool>(
         let (mut re, mut im) = (f64x8::ZERO, f64x8::ZERO);
         for (i, (b, &(wc, ws))) in rows.iter().zip(mix).enumerate() {
             let x = block.lanes(t0 + i, g);
-            // The model in two independent sums (cos and sin terms), so
-            // that no long chain of dependent multiply-adds forms.
-            let (mut even, mut odd) = (coefs.dc, f64x8::ZERO);
-            for k in 0..C / 2 {
-                even = coefs.coef[2 * k].mul_add(f64x8::splat(b[2 * k]), even);
-                odd = coefs.coef[2 * k + 1].mul_add(f64x8::splat(b[2 * k + 1]), odd);
+            // The model in four independent sums, so that no long chain of
+            // dependent multiply-adds forms.
+            let mut part = [coefs.dc, f64x8::ZERO, f64x8::ZERO, f64x8::ZERO];
+            for q in 0..C {
+                part[q % 4] = coefs.coef[q].mul_add(f64x8::splat(b[q]), part[q % 4]);
             }
-            let r = x - (even + odd);
+            let r = x - ((part[0] + part[1]) + (part[2] + part[3]));
             ss = r.mul_add(r, ss);
             re = r.mul_add(f64x8::splat(wc), re);
             im = r.mul_add(f64x8::splat(ws), im);
