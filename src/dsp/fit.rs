@@ -339,8 +339,8 @@ fn project_group<const C: usize>(block: Frames, g: usize, rows: &[[f64; C]]) -> 
         let x = block.lanes(t, g);
         s.sum += x;
         s.sum_sq = x.mul_add(x, s.sum_sq);
-        for q in 0..C {
-            s.proj[q] = x.mul_add(f64x8::splat(b[q]), s.proj[q]);
+        for (p, bq) in s.proj.iter_mut().zip(b) {
+            *p = x.mul_add(f64x8::splat(*bq), *p);
         }
     }
     s
@@ -584,6 +584,8 @@ fn residual_group<const C: usize, const KEEP: bool>(
     *sum_sq += ss;
 }
 
+/// The residual pass of [`residual_frames`] with the channels side by side.
+#[allow(clippy::too_many_arguments)]
 fn residual_lanes<const C: usize>(
     frames: Frames,
     fits: &[ToneFit],
