@@ -67,17 +67,63 @@ pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
     bands
         .iter()
         .map(|b| {
-            density
-                .iter()
-                .enumerate()
-                .filter(|(k, _)| {
-                    let f = *k as f64 * bin_hz;
-                    f >= b.lo_hz && f <= b.hi_hz
-                })
-                .map(|(k, d)| d * bin_hz * b.weighting.map_or(1.0, |wf| wf(k as f64 * bin_hz)))
-                .sum()
+            // Bins k with lo_hz <= k·bin_hz <= hi_hz (the quotient gives the
+            // edges; the products decide, as they would bin by bin).
+            let inside = |k: usize| {
+                let f = k as f64 * bin_hz;
+                f >= b.lo_hz && f <= b.hi_hz
+            };
+            let mut first = (b.lo_hz / bin_hz).ceil().max(0.0) as usize;
+            while first > 0 && inside(first - 1) {
+                first -= 1;
+            }
+            while first < density.len() && !inside(first) && (first as f64) * bin_hz < b.lo_hz {
+                first += 1;
+            }
+            let mut end = ((b.hi_hz / bin_hz).floor().max(0.0) as usize + 1).min(density.len());
+            while end < density.len() && inside(end) {
+                end += 1;
+            }
+            while end > first && !inside(end - 1) {
+                end -= 1;
+            }
+            if first >= end {
+                return 0.0;
+            }
+            match b.weighting {
+                None => density[first..end].iter().sum::<f64>() * bin_hz,
+                Some(wf) => {
+                    let gains = weights(wf, bin_hz, density.len());
+                    density[first..end]
+                        .iter()
+                        .zip(&gains[first..end])
+                        .map(|(d, g)| d * g)
+                        .sum::<f64>()
+                        * bin_hz
+                }
+            }
         })
         .collect()
+}
+
+/// `wf` at every bin `k·bin_hz`, `k < bins`, kept per thread (the same few
+/// weightings and segment lengths serve every channel).
+fn weights(wf: fn(f64) -> f64, bin_hz: f64, bins: usize) -> std::rc::Rc<Vec<f64>> {
+    use std::cell::RefCell;
+    use std::collections::HashMap;
+    type Key = (usize, u64, usize);
+    thread_local! {
+        static CACHE: RefCell<HashMap<Key, std::rc::Rc<Vec<f64>>>> = RefCell::new(HashMap::new());
+    }
+    let key = (wf as usize, bin_hz.to_bits(), bins);
+    CACHE.with(|c| {
+        c.borrow_mut()
+            .entry(key)
+            .or_insert_with(|| {
+                std::rc::Rc::new((0..bins).map(|k| wf(k as f64 * bin_hz)).collect())
+            })
+            .clone()
+    })
 }
 
 #[cfg(test)]
