@@ -119,9 +119,7 @@ fn weights(wf: fn(f64) -> f64, bin_hz: f64, bins: usize) -> std::rc::Rc<Vec<f64>
     CACHE.with(|c| {
         c.borrow_mut()
             .entry(key)
-            .or_insert_with(|| {
-                std::rc::Rc::new((0..bins).map(|k| wf(k as f64 * bin_hz)).collect())
-            })
+            .or_insert_with(|| std::rc::Rc::new((0..bins).map(|k| wf(k as f64 * bin_hz)).collect()))
             .clone()
     })
 }
