@@ -205,7 +205,7 @@ fn read_frames_inner<R: Read>(
     // floats the order of the bits is the order of the values, and infinity
     // or NaN sort above every finite value.
     let mut largest = vec![0u32; channels];
-    let frames_per_block = (1 << 18) / block_align.max(1) + 1;
+    let frames_per_block = (1 << 20) / block_align.max(1) + 1;
     let mut buf = match format {
         SampleCoding::F32 => Vec::new(),
         _ => vec![0u8; frames_per_block * block_align],
