@@ -339,8 +339,9 @@ fn project_group<const C: usize>(block: Frames, g: usize, rows: &[[f64; C]]) -> 
         let x = block.lanes(t, g);
         s.sum += x;
         s.sum_sq = x.mul_add(x, s.sum_sq);
-        for (p, bq) in s.proj.iter_mut().zip(b) {
-            *p = x.mul_add(f64x8::splat(*bq), *p);
+        #[allow(clippy::needless_range_loop)] // indexing keeps the accumulators in registers
+        for q in 0..C {
+            s.proj[q] = x.mul_add(f64x8::splat(b[q]), s.proj[q]);
         }
     }
     s
@@ -559,6 +560,8 @@ fn residual_group<const C: usize, const KEEP: bool>(
     kept: &mut [[f64; LANES]],
 ) {
     let mut ss = f64x8::ZERO;
+    // Local copies, so that the coefficients stay in registers.
+    let (dc, coef) = (coefs.dc, coefs.coef);
     let chunks = job.rows.chunks(DECIMATION).zip(job.mix.chunks(DECIMATION));
     for ((d, (rows, mix)), out) in chunks.enumerate().zip(baseband.iter_mut()) {
         let t0 = d * DECIMATION;
@@ -567,9 +570,9 @@ fn residual_group<const C: usize, const KEEP: bool>(
             let x = block.lanes(t0 + i, g);
             // The model in four independent sums, so that no long chain of
             // dependent multiply-adds forms.
-            let mut part = [coefs.dc, f64x8::ZERO, f64x8::ZERO, f64x8::ZERO];
+            let mut part = [dc, f64x8::ZERO, f64x8::ZERO, f64x8::ZERO];
             for q in 0..C {
-                part[q % 4] = coefs.coef[q].mul_add(f64x8::splat(b[q]), part[q % 4]);
+                part[q % 4] = coef[q].mul_add(f64x8::splat(b[q]), part[q % 4]);
             }
             let r = x - ((part[0] + part[1]) + (part[2] + part[3]));
             ss = r.mul_add(r, ss);
