@@ -14,6 +14,7 @@ use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Drive, FrameCapture};
 use rustfft::FftPlanner;
 use serde::Serialize;
+use std::borrow::Cow;
 
 /// What one channel of one capture holds.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -98,8 +99,15 @@ pub fn analyze_capture_with(
     let all = capture.frames();
     let frames = all.len();
     let nch = all.channels();
-    // The driven channel on its own: it sets the span and the frequency.
-    let aggressor = drive.map(|d| all.channel(d.channel as usize - 1));
+    // The driven channel on its own: it sets the span and the frequency
+    // (copied out while reading when the reader was asked to).
+    let aggressor: Option<Cow<[f32]>> = drive.map(|d| {
+        let c = d.channel as usize - 1;
+        match &capture.picked {
+            Some((p, x)) if *p == c => Cow::Borrowed(x.as_slice()),
+            _ => Cow::Owned(all.channel(c)),
+        }
+    });
     let (span, model) = match (drive, &aggressor) {
         (Some(d), Some(aggressor)) => {
             if aggressor.iter().all(|v| *v == 0.0) {

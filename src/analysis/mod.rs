@@ -260,8 +260,13 @@ pub fn analyze_run(
         .par_iter()
         .map_init(Vec::new, |buffer, entry| {
             let path = manifest.capture_path(run_dir, entry);
-            let cap =
-                read_frames_reusing(&path, nch, manifest.sample_rate_hz, std::mem::take(buffer))?;
+            let cap = read_frames_reusing(
+                &path,
+                nch,
+                manifest.sample_rate_hz,
+                std::mem::take(buffer),
+                entry.drive.map(|d| d.channel as usize - 1),
+            )?;
             // Band-limited floors come from idle captures when there are
             // any, else from the victims of the first few drive captures.
             let need_bands =

@@ -65,6 +65,9 @@ pub struct FrameCapture {
     pub data: Vec<f32>,
     /// Per channel, the largest absolute sample.
     pub peaks: Vec<f32>,
+    /// One channel (from 0) copied out while reading, when asked for (see
+    /// [`read_frames_reusing`]): cheaper than a strided pass afterwards.
+    pub picked: Option<(usize, Vec<f32>)>,
 }
 
 impl FrameCapture {
@@ -98,16 +101,19 @@ pub fn read_frames(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<FrameCapture, RunError> {
-    read_frames_reusing(path, channels, sample_rate_hz, Vec::new())
+    read_frames_reusing(path, channels, sample_rate_hz, Vec::new(), None)
 }
 
 /// [`read_frames`] into `buffer`'s allocation (say, the `data` of the
-/// previous capture), which spares allocating and clearing it again.
+/// previous capture), which spares allocating and clearing it again; with
+/// `pick`, channel `pick` (from 0) is also copied out into
+/// [`FrameCapture::picked`] while the data passes by.
 pub fn read_frames_reusing(
     path: &Path,
     channels: usize,
     sample_rate_hz: u32,
     buffer: Vec<f32>,
+    pick: Option<usize>,
 ) -> Result<FrameCapture, RunError> {
     let file = std::fs::File::open(path).map_err(|e| RunError::io(path, e))?;
     read_frames_inner(
@@ -116,6 +122,7 @@ pub fn read_frames_reusing(
         channels,
         sample_rate_hz,
         buffer,
+        pick.filter(|c| *c < channels),
     )
 }
 
@@ -136,7 +143,7 @@ pub fn read_frames_from<R: Read>(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<FrameCapture, RunError> {
-    read_frames_inner(reader, path, channels, sample_rate_hz, Vec::new())
+    read_frames_inner(reader, path, channels, sample_rate_hz, Vec::new(), None)
 }
 
 fn read_frames_inner<R: Read>(
@@ -145,6 +152,7 @@ fn read_frames_inner<R: Read>(
     channels: usize,
     sample_rate_hz: u32,
     buffer: Vec<f32>,
+    pick: Option<usize>,
 ) -> Result<FrameCapture, RunError> {
     let bad = |message: String| RunError::Wav {
         path: path.to_path_buf(),
@@ -205,6 +213,7 @@ fn read_frames_inner<R: Read>(
     // floats the order of the bits is the order of the values, and infinity
     // or NaN sort above every finite value.
     let mut largest = vec![0u32; channels];
+    let mut picked = Vec::with_capacity(if pick.is_some() { frames } else { 0 });
     let frames_per_block = (1 << 20) / block_align.max(1) + 1;
     let mut buf = match format {
         SampleCoding::F32 => Vec::new(),
@@ -232,6 +241,9 @@ fn read_frames_inner<R: Read>(
                 *m = (*m).max(v.to_bits() & 0x7fff_ffff);
             }
         }
+        if let Some(c) = pick {
+            picked.extend(dst.chunks_exact(channels).map(|row| row[c]));
+        }
         if largest.iter().any(|m| *m >= NON_FINITE) {
             let i = dst.iter().position(|v| !v.is_finite()).unwrap_or_default();
             return Err(bad(format!(
@@ -248,6 +260,7 @@ fn read_frames_inner<R: Read>(
         channels,
         data: out,
         peaks: largest.into_iter().map(f32::from_bits).collect(),
+        picked: pick.map(|c| (c, picked)),
     })
 }
 
