@@ -12,7 +12,6 @@ use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Drive, FrameCapture};
-use rustfft::FftPlanner;
 use serde::Serialize;
 use std::borrow::Cow;
 
@@ -134,7 +133,6 @@ pub fn analyze_capture_with(
         _ => (0..frames, None),
     };
     let steady = all.slice(span.clone());
-    let mut planner = FftPlanner::new();
     let bands = config.bands(fs);
     let usable_edge = fs / config.usable_band_ratio;
     // Per channel over the whole capture: peak, clipping, out-of-band check.
@@ -177,7 +175,6 @@ pub fn analyze_capture_with(
                         m.freq_hz(fs),
                         fs,
                         m.terms,
-                        &mut planner,
                     );
                     let band_power = if need_bands {
                         band_powers(&kept[i], fs, &bands)

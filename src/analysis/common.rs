@@ -79,7 +79,6 @@ pub fn analyze_common(
     let slices: Vec<&[f32]> = capture.channels.iter().map(|c| &c[span.clone()]).collect();
     let fits = fit_tones(&slices, &model).map_err(|e| e.to_string())?;
     // The same residual pass and local-noise estimate as a drive capture.
-    let mut planner = rustfft::FftPlanner::new();
     let len = span.len();
     let stats = residual_pass(
         &slices,
@@ -92,16 +91,9 @@ pub fn analyze_common(
         .iter()
         .zip(&fits)
         .map(|(st, fit)| {
-            let sigma = quadrature_sigma_decimated(
-                st,
-                DECIMATION,
-                len,
-                est.freq_hz,
-                fs,
-                model.terms,
-                &mut planner,
-            )
-            .unwrap_or_else(|| (2.0 * st.sum_sq).sqrt() / len as f64);
+            let sigma =
+                quadrature_sigma_decimated(st, DECIMATION, len, est.freq_hz, fs, model.terms)
+                    .unwrap_or_else(|| (2.0 * st.sum_sq).sqrt() / len as f64);
             sigma / fit.fundamental()
         })
         .collect();

@@ -114,7 +114,6 @@ pub fn quadrature_sigma_decimated(
     freq_hz: f64,
     sample_rate_hz: f64,
     terms: usize,
-    planner: &mut FftPlanner<f64>,
 ) -> Option<f64> {
     let m = stats.baseband.len();
     if m < 2 * OFFSETS.end() + 8 {
@@ -126,7 +125,7 @@ pub fn quadrature_sigma_decimated(
         .iter()
         .map(|(r, i)| Complex::new(*r, *i))
         .collect();
-    planner.plan_fft_forward(m).process(&mut buf);
+    super::plans::complex_forward(m).process(&mut buf);
     let power = offset_bins(&buf, freq_hz, bin_hz, sample_rate_hz, terms);
     if power.len() < 8 {
         return None;
@@ -200,16 +199,9 @@ mod tests {
                 kept[0].len() == r.len() && worst < 1e-12,
                 "residuals differ by {worst}"
             );
-            let dec = quadrature_sigma_decimated(
-                &st[0],
-                DECIMATION,
-                x.len(),
-                f,
-                48_000.0,
-                model.terms,
-                &mut planner,
-            )
-            .unwrap();
+            let dec =
+                quadrature_sigma_decimated(&st[0], DECIMATION, x.len(), f, 48_000.0, model.terms)
+                    .unwrap();
             assert!((dec / full - 1.0).abs() < 0.25, "{f} Hz: {dec} vs {full}");
             ratio_sum += dec / (1e-3 * (2.0f64 / 48_000.0).sqrt());
         }
