@@ -133,19 +133,10 @@ pub fn read_capture_from<R: Read>(
     channels: usize,
     sample_rate_hz: u32,
 ) -> Result<Capture, RunError> {
-    Ok(read_frames_from(reader, path, channels, sample_rate_hz)?.deinterleave())
+    Ok(read_frames_inner(reader, path, channels, sample_rate_hz, Vec::new(), None)?.deinterleave())
 }
 
-/// Like [`read_frames`] over any reader; `path` names it in messages.
-pub fn read_frames_from<R: Read>(
-    reader: R,
-    path: &Path,
-    channels: usize,
-    sample_rate_hz: u32,
-) -> Result<FrameCapture, RunError> {
-    read_frames_inner(reader, path, channels, sample_rate_hz, Vec::new(), None)
-}
-
+/// The reader behind [`read_frames_reusing`] and [`read_capture_from`].
 fn read_frames_inner<R: Read>(
     reader: R,
     path: &Path,
