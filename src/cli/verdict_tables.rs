@@ -322,16 +322,7 @@ fn print_baseline(b: &septum::verdict::baseline::BaselineReport) {
         ]);
     }
     println!("{t}");
-    let mut bad: Vec<_> = b
-        .pairs
-        .iter()
-        .filter(|p| p.outcome != Outcome::Pass)
-        .collect();
-    bad.sort_by(|x, y| {
-        y.outcome
-            .cmp(&x.outcome)
-            .then(x.drift_db.total_cmp(&y.drift_db))
-    });
+    let bad = b.not_passing();
     if !bad.is_empty() {
         println!(
             "\nPairs worse than the baseline or undecided ({}{}):",

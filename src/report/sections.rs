@@ -423,16 +423,7 @@ fn baseline(b: &BaselineReport) -> String {
         );
     }
     s += "</tbody></table>";
-    let mut bad: Vec<_> = b
-        .pairs
-        .iter()
-        .filter(|p| p.outcome != Outcome::Pass)
-        .collect();
-    bad.sort_by(|x, y| {
-        y.outcome
-            .cmp(&x.outcome)
-            .then(x.drift_db.total_cmp(&y.drift_db))
-    });
+    let bad = b.not_passing();
     if !bad.is_empty() {
         s += r#"<table><thead><tr><th class="num">frequency (Hz)</th><th class="num">aggressor</th><th class="num">victim</th><th class="num">now (dB)</th><th class="num">then (dB)</th><th class="num">drift (dB)</th><th class="num">u95 (dB)</th><th>verdict</th></tr></thead><tbody>"#;
         for p in bad.iter().take(MAX_ROWS) {

@@ -105,6 +105,24 @@ pub struct BaselineReport {
     pub outcome: Outcome,
 }
 
+impl BaselineReport {
+    /// The pairs that did not pass, fails first, then by drift (most
+    /// negative first).
+    pub fn not_passing(&self) -> Vec<&PairDrift> {
+        let mut bad: Vec<&PairDrift> = self
+            .pairs
+            .iter()
+            .filter(|p| p.outcome != Outcome::Pass)
+            .collect();
+        bad.sort_by(|x, y| {
+            y.outcome
+                .cmp(&x.outcome)
+                .then(x.drift_db.total_cmp(&y.drift_db))
+        });
+        bad
+    }
+}
+
 fn mismatch(message: String) -> VerdictError {
     VerdictError::Mismatch { message }
 }
