@@ -254,17 +254,23 @@ pub fn analyze_run(
         .take(BAND_SOURCES)
         .map(|c| c.file.as_str())
         .collect();
-    // Each worker reads into the frames buffer of its previous capture.
+    // Each capture is read into a frames buffer that an earlier one has
+    // left (at most one per worker), so pages are not faulted in afresh.
+    let buffers: std::sync::Mutex<Vec<Vec<f32>>> = std::sync::Mutex::new(Vec::new());
     let captures = manifest
         .captures
         .par_iter()
-        .map_init(Vec::new, |buffer, entry| {
+        .map(|entry| {
             let path = manifest.capture_path(run_dir, entry);
+            let buffer = buffers
+                .lock()
+                .map(|mut b| b.pop().unwrap_or_default())
+                .unwrap_or_default();
             let cap = read_frames_reusing(
                 &path,
                 nch,
                 manifest.sample_rate_hz,
-                std::mem::take(buffer),
+                buffer,
                 entry.drive.map(|d| d.channel as usize - 1),
             )?;
             // Band-limited floors come from idle captures when there are
@@ -274,7 +280,9 @@ pub fn analyze_run(
             let res =
                 capture::analyze_capture_with(&cap, &entry.file, entry.drive, config, need_bands)
                     .map_err(|message| AnalysisError::Capture { path, message });
-            *buffer = cap.data;
+            if let Ok(mut b) = buffers.lock() {
+                b.push(cap.data);
+            }
             progress();
             res
         })
