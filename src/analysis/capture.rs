@@ -6,7 +6,7 @@ use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::dbfs_to_amplitude;
 use crate::dsp::fit::{
-    coarse_frequency, estimate_frequency_from, fit_frames, residual_frames, ToneModel, DECIMATION,
+    coarse_frequency, estimate_frequency_from, fit_with_residuals, ToneModel, DECIMATION,
 };
 use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
@@ -161,8 +161,12 @@ pub fn analyze_capture_with(
     let mut kept: Vec<Vec<f64>> = vec![Vec::new(); nch];
     let channels: Vec<ChannelFit> = match &model {
         Some(m) => {
-            let fits = fit_frames(steady, m).map_err(|e| e.to_string())?;
-            let stats = residual_frames(steady, &fits, m, &keep, &mut kept);
+            let copy = match (drive, &aggressor) {
+                (Some(d), Some(x)) => Some((d.channel as usize - 1, &x[span.clone()])),
+                _ => None,
+            };
+            let (fits, stats) =
+                fit_with_residuals(steady, m, &keep, &mut kept, copy).map_err(|e| e.to_string())?;
             stats
                 .iter()
                 .zip(&fits)
