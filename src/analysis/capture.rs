@@ -12,6 +12,7 @@ use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
 use crate::dsp::spectrum::{log_spectrum, Spectrum};
 use crate::run::{Drive, FrameCapture};
+use rayon::prelude::*;
 use serde::Serialize;
 use std::borrow::Cow;
 
@@ -269,11 +270,10 @@ pub fn spectra_of(capture: &FrameCapture, analysis: &CaptureAnalysis) -> Vec<(u3
         .filter(|c| c.channel != d.channel)
         .max_by(|a, b| a.amplitude.total_cmp(&b.amplitude))
         .map(|c| c.channel);
-    for ch in std::iter::once(d.channel).chain(loudest) {
+    let wanted: Vec<u32> = std::iter::once(d.channel).chain(loudest).collect();
+    spectra.par_extend(wanted.par_iter().filter_map(|&ch| {
         let x = steady.channel(ch as usize - 1);
-        if let Some(s) = log_spectrum(&x, fs, SPECTRUM_BUCKETS) {
-            spectra.push((ch, s));
-        }
-    }
+        log_spectrum(&x, fs, SPECTRUM_BUCKETS).map(|s| (ch, s))
+    }));
     spectra
 }

@@ -12,7 +12,7 @@ pub mod steady;
 pub use capture::{analyze_capture, CaptureAnalysis, ChannelFit};
 
 use crate::dsp::{amplitude_to_dbfs, power_to_dbfs};
-use crate::run::{read_capture, read_frames, read_frames_reusing, Manifest, RunError};
+use crate::run::{read_capture, read_frames_reusing, Manifest, RunError};
 use rayon::prelude::*;
 use serde::Serialize;
 use std::path::{Path, PathBuf};
@@ -323,7 +323,12 @@ pub fn analyze_run(
         .map(|&i| {
             let analysis = &results.captures[i];
             let path = run_dir.join(&analysis.file);
-            let cap = read_frames(&path, nch, results.manifest.sample_rate_hz)?;
+            let buffer = buffers
+                .lock()
+                .map(|mut b| b.pop().unwrap_or_default())
+                .unwrap_or_default();
+            let cap =
+                read_frames_reusing(&path, nch, results.manifest.sample_rate_hz, buffer, None)?;
             Ok((i, capture::spectra_of(&cap, analysis)))
         })
         .collect::<Result<_, AnalysisError>>()?;
