@@ -169,10 +169,11 @@ pub fn analyze_capture_with(
             let (fits, stats) =
                 fit_with_residuals(steady, m, &keep, &mut kept, copy).map_err(|e| e.to_string())?;
             stats
-                .iter()
+                .into_iter()
                 .zip(&fits)
                 .enumerate()
                 .map(|(i, (st, fit))| {
+                    let sum_sq = st.sum_sq;
                     let sigma = quadrature_sigma_decimated(
                         st,
                         DECIMATION,
@@ -192,7 +193,7 @@ pub fn analyze_capture_with(
                         phase_rad: fit.phase(0),
                         harmonics: (1..m.terms).map(|k| fit.amplitude(k)).collect(),
                         dc: fit.dc,
-                        residual_rms: (st.sum_sq / (len - m.params() as f64)).sqrt(),
+                        residual_rms: (sum_sq / (len - m.params() as f64)).sqrt(),
                         quadrature_sigma: sigma,
                         peak: f64::from(peaks[i].0),
                         clipped: peaks[i].1,

@@ -88,12 +88,13 @@ pub fn analyze_common(
         &mut vec![Vec::new(); slices.len()],
     );
     let rel_sigma: Vec<f64> = stats
-        .iter()
+        .into_iter()
         .zip(&fits)
         .map(|(st, fit)| {
+            let sum_sq = st.sum_sq;
             let sigma =
                 quadrature_sigma_decimated(st, DECIMATION, len, est.freq_hz, fs, model.terms)
-                    .unwrap_or_else(|| (2.0 * st.sum_sq).sqrt() / len as f64);
+                    .unwrap_or_else(|| (2.0 * sum_sq).sqrt() / len as f64);
             sigma / fit.fundamental()
         })
         .collect();

@@ -10,6 +10,7 @@
 use super::frames::{Frames, LANES};
 use super::linalg::Cholesky;
 use super::osc::{fill_harmonics, BLOCK};
+use rustfft::num_complex::Complex;
 use std::f64::consts::PI;
 use thiserror::Error;
 use wide::f64x8;
@@ -260,7 +261,7 @@ pub struct ResidualStats {
     pub sum_sq: f64,
     /// The residual, Hann-weighted over the first `DECIMATION·baseband.len()`
     /// samples, mixed down by `e^{−jωt}` and summed in blocks of `DECIMATION`.
-    pub baseband: Vec<(f64, f64)>,
+    pub baseband: Vec<Complex<f64>>,
     /// Σ w² of that Hann window.
     pub window_energy: f64,
 }
@@ -638,7 +639,7 @@ fn residual_lanes<const C: usize>(
                 st.baseband.extend(
                     bb[..wanted]
                         .iter()
-                        .map(|[re, im]| (re.as_array()[l], -im.as_array()[l])),
+                        .map(|[re, im]| Complex::new(re.as_array()[l], -im.as_array()[l])),
                 );
             }
             if keeping {
@@ -702,7 +703,7 @@ fn residual_channels(
                     let o = j * DECIMATION;
                     let re = dot(chunk, &wc[o..o + DECIMATION]);
                     let im = -dot(chunk, &ws[o..o + DECIMATION]);
-                    st.baseband.push((re, im));
+                    st.baseband.push(Complex::new(re, im));
                 }
             }
             if keep[c] {
@@ -1057,7 +1058,7 @@ pub fn fit_with_residuals(
             }
         }
         let theta: Vec<f64x8> = theta.into_iter().map(f64x8::new).collect();
-        let mut out = vec![vec![(0.0, 0.0); group.baseband.len()]; chans.len()];
+        let mut out = vec![Vec::with_capacity(group.baseband.len()); chans.len()];
         for (j, [xr, xi]) in group.baseband.iter().enumerate() {
             let (mut re, mut im) = (*xr, *xi);
             for (t, (cr, ci)) in theta.iter().zip(&pass.columns[j * q..(j + 1) * q]) {
@@ -1066,7 +1067,7 @@ pub fn fit_with_residuals(
             }
             let (re, im) = (re.as_array(), im.as_array());
             for (l, o) in out.iter_mut().enumerate() {
-                o[j] = (re[l], -im[l]);
+                o.push(Complex::new(re[l], -im[l]));
             }
         }
         for ((l, c), baseband) in chans.enumerate().zip(out) {
@@ -1642,7 +1643,9 @@ mod gram_tests {
                 assert_eq!(s2[c].baseband.len(), blocks);
                 let scale = s2[c].sum_sq.sqrt();
                 for (a, b) in s1[c].baseband.iter().zip(&s2[c].baseband) {
-                    assert!((a.0 - b.0).abs() <= 1e-9 * scale && (a.1 - b.1).abs() <= 1e-9 * scale);
+                    assert!(
+                        (a.re - b.re).abs() <= 1e-9 * scale && (a.im - b.im).abs() <= 1e-9 * scale
+                    );
                 }
                 assert_eq!(k1[c].len(), if keep[c] { len } else { 0 });
                 for (a, b) in k1[c].iter().zip(&k2[c]) {
@@ -1717,7 +1720,7 @@ mod gram_tests {
                 let bound = 1e-6 * (r.sum_sq / len as f64).sqrt();
                 for (x, y) in s.baseband.iter().zip(&r.baseband) {
                     assert!(
-                        (x.0 - y.0).abs() < bound && (x.1 - y.1).abs() < bound,
+                        (x.re - y.re).abs() < bound && (x.im - y.im).abs() < bound,
                         "{nch} ch {c}: baseband {x:?} vs {y:?}"
                     );
                 }

@@ -107,8 +107,9 @@ pub fn quadrature_sigma(
 /// has, for white noise, the same mean power as the full DFT (its kernel has
 /// unit modulus), and lines further than a few hundred hertz away alias into
 /// it attenuated by the block sum's nulls. `fit_len` is the length of the fit.
+/// The baseband is transformed in place, so `stats` is taken whole.
 pub fn quadrature_sigma_decimated(
-    stats: &crate::dsp::fit::ResidualStats,
+    mut stats: crate::dsp::fit::ResidualStats,
     decimation: usize,
     fit_len: usize,
     freq_hz: f64,
@@ -120,13 +121,8 @@ pub fn quadrature_sigma_decimated(
         return None;
     }
     let bin_hz = sample_rate_hz / (m * decimation) as f64;
-    let mut buf: Vec<Complex<f64>> = stats
-        .baseband
-        .iter()
-        .map(|(r, i)| Complex::new(*r, *i))
-        .collect();
-    super::plans::complex_forward(m).process(&mut buf);
-    let power = offset_bins(&buf, freq_hz, bin_hz, sample_rate_hz, terms);
+    super::plans::complex_forward(m).process(&mut stats.baseband);
+    let power = offset_bins(&stats.baseband, freq_hz, bin_hz, sample_rate_hz, terms);
     if power.len() < 8 {
         return None;
     }
@@ -199,9 +195,15 @@ mod tests {
                 kept[0].len() == r.len() && worst < 1e-12,
                 "residuals differ by {worst}"
             );
-            let dec =
-                quadrature_sigma_decimated(&st[0], DECIMATION, x.len(), f, 48_000.0, model.terms)
-                    .unwrap();
+            let dec = quadrature_sigma_decimated(
+                st[0].clone(),
+                DECIMATION,
+                x.len(),
+                f,
+                48_000.0,
+                model.terms,
+            )
+            .unwrap();
             assert!((dec / full - 1.0).abs() < 0.25, "{f} Hz: {dec} vs {full}");
             ratio_sum += dec / (1e-3 * (2.0f64 / 48_000.0).sqrt());
         }
