@@ -13,9 +13,11 @@
 //! resident memory (wait4). It measures the machine's memory read bandwidth
 //! and relates each time to the time one read pass over the WAV data would
 //! take. When numpy is importable it runs `benches/reference.py` on the same
-//! run `--repeats` times and compares its median time (as it reports it,
-//! reading included, interpreter start excluded) and the worst separation. Every figure printed
-//! is measured here; nothing is a pass/fail test.
+//! run after each timed septum run (the two alternate, so that a machine
+//! slowing down for a while slows both) and compares its median time (as it
+//! reports it, reading included, interpreter start excluded) and the worst
+//! separation. Every figure printed is measured here; nothing is a
+//! pass/fail test.
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -308,11 +310,15 @@ struct Measured {
     peak_rss: u64,
 }
 
+/// Time `septum analyze` `repeats` times after a warm-up run; `between`
+/// runs after each timed run (the reference, so that the two alternate and
+/// a machine slowing down for a while affects both alike).
 fn measure_analyze(
     septum: &Path,
     run: &Path,
     res: &Path,
     repeats: usize,
+    between: &mut dyn FnMut() -> Result<(), String>,
 ) -> Result<Measured, String> {
     let cmd = || {
         let mut c = Command::new(septum);
@@ -332,6 +338,7 @@ fn measure_analyze(
         times.push(t);
         cpus.push(cpu);
         peak = peak.max(rss);
+        between()?;
     }
     times.sort_by(f64::total_cmp);
     cpus.sort_by(f64::total_cmp);
@@ -389,22 +396,6 @@ fn find_python(explicit: Option<&str>, target: &Path) -> Option<String> {
             .status()
             .is_ok_and(|s| s.success())
     })
-}
-
-/// Run reference.py `repeats` times: the median of the times it reports (s),
-/// the difference of worst separations (dB) and the line of that run.
-fn run_reference(
-    python: &str,
-    script: &Path,
-    run: &Path,
-    pairs: &Path,
-    repeats: usize,
-) -> Result<(f64, f64, String), String> {
-    let mut runs = (0..repeats.max(1))
-        .map(|_| run_reference_once(python, script, run, pairs))
-        .collect::<Result<Vec<_>, _>>()?;
-    runs.sort_by(|a, b| a.0.total_cmp(&b.0));
-    Ok(runs.swap_remove(runs.len() / 2))
 }
 
 /// One run of reference.py: time (s), worst-separation difference (dB), its line.
@@ -552,25 +543,39 @@ fn real_main() -> Result<(), String> {
         let run = prepare(&septum, &base, s, &root)?;
         let res = root.join(format!("results-{}", s.name));
         let bytes = wav_bytes(&run);
-        let m = measure_analyze(&septum, &run, &res, o.repeats)?;
+        // The reference runs after each timed septum run, on the results
+        // septum just wrote (its worst pair is compared with theirs).
+        let mut reference: Vec<(f64, f64, String)> = Vec::new();
+        let mut failure = None;
+        let pairs = res.join("pairs.csv");
+        let mut between = || {
+            if let (Some(p), None) = (&python, &failure) {
+                match run_reference_once(p, &script, &run, &pairs) {
+                    Ok(r) => reference.push(r),
+                    Err(e) => failure = Some(e),
+                }
+            }
+            Ok(())
+        };
+        let m = measure_analyze(&septum, &run, &res, o.repeats, &mut between)?;
         let captures = s.channels as f64;
         let bound = bytes as f64 / bw;
-        let (np_s, speedup, diff) = match &python {
-            Some(p) => match run_reference(p, &script, &run, &res.join("pairs.csv"), o.repeats) {
-                Ok((t, d, line)) => {
-                    notes.push(format!("{}: {line}", s.name));
-                    (
-                        format!("{t:.2}"),
-                        format!("{:.1}x", t / m.median_s),
-                        format!("{d:+.3}"),
-                    )
-                }
-                Err(e) => {
-                    notes.push(format!("{}: reference failed: {e}", s.name));
-                    ("-".into(), "-".into(), "-".into())
-                }
-            },
-            None => ("-".into(), "-".into(), "-".into()),
+        let (np_s, speedup, diff) = match (&python, failure) {
+            (Some(_), None) if !reference.is_empty() => {
+                reference.sort_by(|a, b| a.0.total_cmp(&b.0));
+                let (t, d, line) = reference.swap_remove(reference.len() / 2);
+                notes.push(format!("{}: {line}", s.name));
+                (
+                    format!("{t:.2}"),
+                    format!("{:.1}x", t / m.median_s),
+                    format!("{d:+.3}"),
+                )
+            }
+            (Some(_), Some(e)) => {
+                notes.push(format!("{}: reference failed: {e}", s.name));
+                ("-".into(), "-".into(), "-".into())
+            }
+            _ => ("-".into(), "-".into(), "-".into()),
         };
         writeln!(
             table,
@@ -623,7 +628,7 @@ fn real_main() -> Result<(), String> {
                 let run = prepare(&septum, &base, &s, &root)?;
                 let res = root.join(format!("results-{}", s.name));
                 let bytes = wav_bytes(&run);
-                let m = measure_analyze(&septum, &run, &res, o.repeats)?;
+                let m = measure_analyze(&septum, &run, &res, o.repeats, &mut || Ok(()))?;
                 println!(
                     "{:>8} {:>9} {:>8.1} {:>9.3} {:>8.2} {:>9.0} {:>12.2} {:>13.2}x",
                     ch,
