@@ -158,7 +158,9 @@ pub fn analyze_capture_with(
         usable_edge,
     );
     let len = span.len() as f64;
-    let keep = vec![need_bands; nch];
+    // The residual is kept for the band-limited floors, which come from victims.
+    let driven = drive.map(|d| d.channel as usize - 1);
+    let keep: Vec<bool> = (0..nch).map(|c| need_bands && Some(c) != driven).collect();
     let mut kept: Vec<Vec<f64>> = vec![Vec::new(); nch];
     let channels: Vec<ChannelFit> = match &model {
         Some(m) => {
@@ -182,7 +184,7 @@ pub fn analyze_capture_with(
                         fs,
                         m.terms,
                     );
-                    let band_power = if need_bands {
+                    let band_power = if keep[i] {
                         band_powers(&kept[i], fs, &bands)
                     } else {
                         Vec::new()
