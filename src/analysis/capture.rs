@@ -6,7 +6,8 @@ use super::steady::steady_range;
 use super::AnalysisConfig;
 use crate::dsp::dbfs_to_amplitude;
 use crate::dsp::fit::{
-    coarse_frequency, estimate_frequency_from, fit_with_residuals, ToneModel, DECIMATION,
+    coarse_frequency, estimate_frequency_from, fit_with_residuals, residual_band_powers, ToneModel,
+    DECIMATION,
 };
 use crate::dsp::noise::quadrature_sigma_decimated;
 use crate::dsp::psd::band_powers;
@@ -158,18 +159,23 @@ pub fn analyze_capture_with(
         usable_edge,
     );
     let len = span.len() as f64;
-    // The residual is kept for the band-limited floors, which come from victims.
+    // Band-limited floors come from victims.
     let driven = drive.map(|d| d.channel as usize - 1);
-    let keep: Vec<bool> = (0..nch).map(|c| need_bands && Some(c) != driven).collect();
-    let mut kept: Vec<Vec<f64>> = vec![Vec::new(); nch];
+    let victims: Vec<usize> = (0..nch)
+        .filter(|c| need_bands && Some(*c) != driven)
+        .collect();
     let channels: Vec<ChannelFit> = match &model {
         Some(m) => {
             let copy = match (drive, &aggressor) {
                 (Some(d), Some(x)) => Some((d.channel as usize - 1, &x[span.clone()])),
                 _ => None,
             };
-            let (fits, stats) =
-                fit_with_residuals(steady, m, &keep, &mut kept, copy).map_err(|e| e.to_string())?;
+            let (fits, stats) = fit_with_residuals(steady, m, copy).map_err(|e| e.to_string())?;
+            let mut band_of = vec![Vec::new(); nch];
+            let powers = residual_band_powers(steady, &fits, m, &victims, fs, &bands);
+            for (c, p) in victims.iter().zip(powers) {
+                band_of[*c] = p;
+            }
             stats
                 .into_iter()
                 .zip(&fits)
@@ -184,11 +190,7 @@ pub fn analyze_capture_with(
                         fs,
                         m.terms,
                     );
-                    let band_power = if keep[i] {
-                        band_powers(&kept[i], fs, &bands)
-                    } else {
-                        Vec::new()
-                    };
+                    let band_power = std::mem::take(&mut band_of[i]);
                     ChannelFit {
                         channel: i as u32 + 1,
                         amplitude: fit.fundamental(),

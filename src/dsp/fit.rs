@@ -976,27 +976,23 @@ fn project_group_stats<const C: usize>(
 /// Fit `model` to every channel of `frames` (as [`fit_frames`]) and give
 /// each channel's residual statistics (as [`residual_frames`]), deriving
 /// them from sums taken during the fit wherever rounding allows and
-/// making the explicit residual pass only for the channels that need it:
-/// those with `keep[c]` (whose residual is appended to `kept[c]`) and
-/// those whose tone stands too far above the residual. `copy` may hold a
-/// contiguous copy of one channel, `(channel, samples)`, for that pass.
+/// making the explicit residual pass only for the channels whose tone
+/// stands too far above the residual. `copy` may hold a contiguous copy
+/// of one channel, `(channel, samples)`, for that pass.
 ///
 /// # Panics
-/// When `keep` or `kept` do not have one entry per channel, or `copy`
-/// differs in length from the frames.
+/// When `copy` differs in length from the frames.
 pub fn fit_with_residuals(
     frames: Frames,
     model: &ToneModel,
-    keep: &[bool],
-    kept: &mut [Vec<f64>],
     copy: Option<(usize, &[f32])>,
 ) -> Result<(Vec<ToneFit>, Vec<ResidualStats>), FitError> {
     let nch = frames.channels();
-    assert!(keep.len() == nch && kept.len() == nch);
     let len = frames.len();
     if nch < LANES / 2 || model.terms > 10 {
         let fits = fit_frames(frames, model)?;
-        let stats = residual_frames(frames, &fits, model, keep, kept);
+        let none = vec![false; nch];
+        let stats = residual_frames(frames, &fits, model, &none, &mut vec![Vec::new(); nch]);
         return Ok((fits, stats));
     }
     let p = model.params();
@@ -1037,13 +1033,13 @@ pub fn fit_with_residuals(
                 .map(|(t, b)| t * b)
                 .sum();
             let rr = xx - tb;
-            (!keep[c] && rr > 0.0 && rr * DERIVED_MAX_RATIO >= xx).then_some(rr)
+            (rr > 0.0 && rr * DERIVED_MAX_RATIO >= xx).then_some(rr)
         })
         .collect();
     let need: Vec<bool> = derived.iter().map(Option::is_none).collect();
     #[cfg(test)]
     DERIVED.with(|d| d.set(d.get() + need.iter().filter(|n| !**n).count()));
-    let mut stats = explicit_residuals(frames, &fits, model, &need, keep, kept, copy);
+    let mut stats = explicit_residuals(frames, &fits, model, &need, copy);
     // The derived basebands, lane group by lane group.
     let q = p;
     for (g, group) in pass.groups.iter().enumerate() {
@@ -1091,8 +1087,6 @@ fn explicit_residuals(
     fits: &[ToneFit],
     model: &ToneModel,
     need: &[bool],
-    keep: &[bool],
-    kept: &mut [Vec<f64>],
     copy: Option<(usize, &[f32])>,
 ) -> Vec<ResidualStats> {
     let nch = frames.channels();
@@ -1112,14 +1106,20 @@ fn explicit_residuals(
                 window_energy: energy,
             })
             .collect();
-        for (c, k) in kept.iter_mut().enumerate() {
-            if keep[c] {
-                k.reserve(len);
-            }
-        }
+        let none = vec![false; nch];
         by_columns!(
             model.terms,
-            residual_lanes(frames, fits, model, need, keep, kept, &mut stats, &window, blocks),
+            residual_lanes(
+                frames,
+                fits,
+                model,
+                need,
+                &none,
+                &mut [],
+                &mut stats,
+                &window,
+                blocks
+            ),
             unreachable!("more than 10 terms take the two-pass route")
         );
         return stats;
@@ -1142,15 +1142,12 @@ fn explicit_residuals(
             baseband: Vec::with_capacity(blocks),
             window_energy: energy,
         }];
-        if keep[c] {
-            kept[c].reserve(len);
-        }
         residual_channels(
             &[x],
             &fits[c..=c],
             model,
-            &keep[c..=c],
-            &mut kept[c..=c],
+            &[false],
+            &mut [Vec::new()],
             &mut one,
             &window,
             blocks,
@@ -1159,6 +1156,136 @@ fn explicit_residuals(
         stats[c] = st;
     }
     stats
+}
+
+/// Welch band powers ([`super::psd::band_powers`]) of the residual
+/// `x − model` of the listed `channels` of `frames`, one entry per listed
+/// channel. The residual is computed once per frame, half a segment at a
+/// time (the segments overlap by half), with eight channels side by side;
+/// nothing longer than a segment is kept.
+///
+/// # Panics
+/// When `fits` does not have one entry per channel of `frames`, or a listed
+/// channel is out of range.
+pub fn residual_band_powers(
+    frames: Frames,
+    fits: &[ToneFit],
+    model: &ToneModel,
+    channels: &[usize],
+    sample_rate_hz: f64,
+    bands: &[super::psd::Band],
+) -> Vec<Vec<f64>> {
+    assert_eq!(fits.len(), frames.channels(), "one fit per channel");
+    let Some(mut welch) = super::psd::Welch::new(frames.len(), channels.len()) else {
+        return vec![vec![0.0; bands.len()]; channels.len()];
+    };
+    let seg = welch.segment();
+    let starts = welch.starts();
+    // Segment s is made of pieces s and s + 1 (a lone segment of odd
+    // length is one piece).
+    let (piece, pieces) = if seg.is_multiple_of(2) {
+        (seg / 2, starts.len() + 1)
+    } else {
+        (seg, 1)
+    };
+    let mut ring = vec![vec![vec![0.0; piece]; channels.len()]; 2];
+    let mut buf = vec![0.0; seg];
+    for h in 0..pieces {
+        let (now, before) = (h % 2, 1 - h % 2);
+        by_columns!(
+            model.terms,
+            residual_piece(frames, fits, model, channels, h * piece, &mut ring[now]),
+            residual_piece_plain(frames, fits, model, channels, h * piece, &mut ring[now])
+        );
+        if pieces > 1 && h == 0 {
+            continue;
+        }
+        for (r, (earlier, latest)) in ring[before].iter().zip(&ring[now]).enumerate() {
+            if pieces == 1 {
+                buf.copy_from_slice(latest);
+            } else {
+                buf[..piece].copy_from_slice(earlier);
+                buf[piece..].copy_from_slice(latest);
+            }
+            welch.add(r, &mut buf);
+        }
+    }
+    welch.band_powers(sample_rate_hz, bands)
+}
+
+/// The residual of the listed channels over the frames from `first`, as
+/// many as `out`'s rows hold, lane group by lane group.
+fn residual_piece<const C: usize>(
+    frames: Frames,
+    fits: &[ToneFit],
+    model: &ToneModel,
+    channels: &[usize],
+    first: usize,
+    out: &mut [Vec<f64>],
+) {
+    let nch = frames.channels();
+    let n = out.first().map_or(0, Vec::len);
+    let mut basis = BasisRows::<C>::new();
+    let mut rows = vec![[0.0; LANES]; FRAME_BLOCK];
+    for b0 in (0..n).step_by(FRAME_BLOCK) {
+        let m = FRAME_BLOCK.min(n - b0);
+        let phi = basis.fill(model, first + b0, m);
+        let block = frames.slice(first + b0..first + b0 + m);
+        for g in 0..frames.groups() {
+            let lanes = g * LANES..(g * LANES + LANES).min(nch);
+            if !channels.iter().any(|c| lanes.contains(c)) {
+                continue;
+            }
+            let coefs = LaneCoefs::<C>::new(&fits[lanes.clone()]);
+            let (dc, coef) = (coefs.dc, coefs.coef);
+            for (t, (row, b)) in rows[..m].iter_mut().zip(phi).enumerate() {
+                let mut part = [dc, f64x8::ZERO, f64x8::ZERO, f64x8::ZERO];
+                for q in 0..C {
+                    part[q % 4] = coef[q].mul_add(f64x8::splat(b[q]), part[q % 4]);
+                }
+                *row = (block.lanes(t, g) - ((part[0] + part[1]) + (part[2] + part[3]))).to_array();
+            }
+            for (r, &c) in channels.iter().enumerate() {
+                if lanes.contains(&c) {
+                    let l = c - lanes.start;
+                    for (o, row) in out[r][b0..b0 + m].iter_mut().zip(&rows[..m]) {
+                        *o = row[l];
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// [`residual_piece`] channel by channel, for any number of harmonics.
+fn residual_piece_plain(
+    frames: Frames,
+    fits: &[ToneFit],
+    model: &ToneModel,
+    channels: &[usize],
+    first: usize,
+    out: &mut [Vec<f64>],
+) {
+    let n = out.first().map_or(0, Vec::len);
+    let mut basis = BasisBlock::new(model.terms);
+    for b0 in (0..n).step_by(BLOCK) {
+        let m = BLOCK.min(n - b0);
+        basis.fill(model, first + b0, m);
+        for (r, &c) in channels.iter().enumerate() {
+            let fit = &fits[c];
+            let x = frames.channel_range(c, first + b0..first + b0 + m);
+            let o = &mut out[r][b0..b0 + m];
+            for (o, v) in o.iter_mut().zip(&x) {
+                *o = f64::from(*v) - fit.dc;
+            }
+            for k in 0..model.terms {
+                let (a, b) = (fit.cos[k], fit.sin[k]);
+                for ((v, co), si) in o.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
+                    *v -= a * co + b * si;
+                }
+            }
+        }
+    }
 }
 
 /// Result of a frequency estimate.
@@ -1738,8 +1865,8 @@ mod gram_tests {
     }
 
     /// The one-pass fit with derived residuals against the fit and the
-    /// explicit residual pass: channels with a quiet tone (derived), with a
-    /// strong one (explicit, one by one or in lanes) and kept ones.
+    /// explicit residual pass: channels with a quiet tone (derived) and with
+    /// a strong one (explicit, one by one or in lanes).
     #[test]
     fn derived_residuals_match_the_explicit_pass() {
         let len = 20_011usize;
@@ -1767,21 +1894,14 @@ mod gram_tests {
                 .collect();
             let frames = Frames::new(&data, nch);
             let model = ToneModel::new(0.0731 * 48_000.0 / (2.0 * PI), 48_000.0, len, 5);
-            let keep: Vec<bool> = (0..nch).map(|c| c == 1).collect();
-            let mut kept_one = vec![Vec::new(); nch];
             let copy = frames.channel(strong[0]);
             DERIVED.with(|d| d.set(0));
-            let (fits, stats) = fit_with_residuals(
-                frames,
-                &model,
-                &keep,
-                &mut kept_one,
-                Some((strong[0], &copy)),
-            )
-            .unwrap();
+            let (fits, stats) =
+                fit_with_residuals(frames, &model, Some((strong[0], &copy))).unwrap();
             let ref_fits = fit_frames(frames, &model).unwrap();
-            let mut kept_two = vec![Vec::new(); nch];
-            let ref_stats = residual_frames(frames, &ref_fits, &model, &keep, &mut kept_two);
+            let keep = vec![false; nch];
+            let ref_stats =
+                residual_frames(frames, &ref_fits, &model, &keep, &mut vec![Vec::new(); nch]);
             for c in 0..nch {
                 let (a, b) = (&fits[c], &ref_fits[c]);
                 let scale = 1e-12 * (1.0 + b.fundamental() / 1e-4);
@@ -1806,14 +1926,9 @@ mod gram_tests {
                         "{nch} ch {c}: baseband {x:?} vs {y:?}"
                     );
                 }
-                assert_eq!(kept_one[c].len(), kept_two[c].len(), "{nch} ch {c}: kept");
             }
-            assert!(kept_one[1]
-                .iter()
-                .zip(&kept_two[1])
-                .all(|(a, b)| (a - b).abs() < 1e-12));
-            // All but the strong and the kept channels went the derived way.
-            assert_eq!(DERIVED.with(|d| d.get()), nch - strong.len() - 1);
+            // All but the strong channels went the derived way.
+            assert_eq!(DERIVED.with(|d| d.get()), nch - strong.len());
         }
     }
 
@@ -1867,6 +1982,55 @@ mod gram_tests {
             used_mixed >= 6,
             "the mixed-down path served {used_mixed} tones"
         );
+    }
+
+    /// Band powers of the residual computed piece by piece against those
+    /// of the residual kept whole by the explicit pass, on lengths that
+    /// make several overlapping segments, a lone even one and a lone odd
+    /// one, with 5 harmonics (lanes) and 12 (channel by channel).
+    #[test]
+    fn residual_band_powers_match_the_kept_residual() {
+        let nch = 11usize;
+        let bands = [
+            super::super::psd::Band {
+                lo_hz: 0.0,
+                hi_hz: 18_750.0,
+                weighting: None,
+            },
+            super::super::psd::Band {
+                lo_hz: 20.0,
+                hi_hz: 20_000.0,
+                weighting: Some(super::super::weighting::a_weighting_power),
+            },
+        ];
+        for (len, h) in [(30_011usize, 5usize), (6_000, 5), (5_001, 5), (20_000, 12)] {
+            let data: Vec<f32> = (0..nch * len)
+                .map(|i| {
+                    let (n, c) = ((i / nch) as f64, (i % nch) as f64);
+                    (0.3 / (1.0 + c) * (0.0731 * n + c).sin()
+                        + 1e-4 * (c + 1.0)
+                        + 1e-5 * ((n * 7.7 + c * 3.1).sin() * 1e4).sin()) as f32
+                })
+                .collect();
+            let frames = Frames::new(&data, nch);
+            let model = ToneModel::new(0.0731 * 48_000.0 / (2.0 * PI), 48_000.0, len, h);
+            let fits = fit_frames(frames, &model).unwrap();
+            let listed: Vec<usize> = (0..nch).filter(|c| *c != 3).collect();
+            let pieces = residual_band_powers(frames, &fits, &model, &listed, 48_000.0, &bands);
+            let keep: Vec<bool> = (0..nch).map(|c| c != 3).collect();
+            let mut kept = vec![Vec::new(); nch];
+            residual_frames(frames, &fits, &model, &keep, &mut kept);
+            assert_eq!(pieces.len(), listed.len());
+            for (p, &c) in pieces.iter().zip(&listed) {
+                let whole = super::super::psd::band_powers(&kept[c], 48_000.0, &bands);
+                for (a, b) in p.iter().zip(&whole) {
+                    assert!(
+                        (a / b - 1.0).abs() < 1e-9 && *b > 0.0,
+                        "{len} frames, {h} harmonics, channel {c}: {a} vs {b}"
+                    );
+                }
+            }
+        }
     }
 
     /// The closed form against the sample-by-sample sums.

@@ -19,36 +19,107 @@ pub struct Band {
 
 /// Mean-square power of `x` inside each band. `x` should have its DC removed.
 pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
-    let len = x.len();
-    if len < 16 || bands.is_empty() {
+    let Some(mut welch) = Welch::new(x.len(), 1) else {
         return vec![0.0; bands.len()];
+    };
+    let seg = welch.segment();
+    let mut buf = vec![0.0; seg];
+    for start in welch.starts() {
+        buf.copy_from_slice(&x[start..start + seg]);
+        welch.add(0, &mut buf);
     }
-    let seg = SEGMENT.min(len);
-    let hop = seg / 2;
-    let w = HANN.cached(seg);
-    let s2: f64 = w.iter().map(|v| v * v).sum();
-    let fft = super::plans::real_forward(seg);
-    let mut buf = fft.make_input_vec();
-    let mut out = fft.make_output_vec();
-    let mut psd = vec![0.0; out.len()];
-    let mut segments = 0usize;
-    let mut start = 0;
-    while start + seg <= len {
-        for (b, (v, wv)) in buf
-            .iter_mut()
-            .zip(x[start..start + seg].iter().zip(w.iter()))
-        {
-            *b = v * wv;
+    welch.band_powers(sample_rate_hz, bands).swap_remove(0)
+}
+
+/// Welch's estimate for several records of one length at once: the caller
+/// hands in each segment ([`Welch::starts`]) of each record, the estimate
+/// windows, transforms and accumulates it.
+pub struct Welch {
+    seg: usize,
+    len: usize,
+    window: std::rc::Rc<[f64]>,
+    fft: std::sync::Arc<dyn realfft::RealToComplex<f64>>,
+    out: Vec<rustfft::num_complex::Complex<f64>>,
+    /// Per record: Σ over its segments of |X_k|².
+    psd: Vec<Vec<f64>>,
+    /// Segments added, per record.
+    segments: Vec<usize>,
+}
+
+impl Welch {
+    /// An estimate for `records` records of `len` samples each; `None` when
+    /// `len` is below 16 samples.
+    pub fn new(len: usize, records: usize) -> Option<Self> {
+        if len < 16 {
+            return None;
         }
-        if fft.process(&mut buf, &mut out).is_err() {
-            break;
+        let seg = SEGMENT.min(len);
+        let fft = super::plans::real_forward(seg);
+        let out = fft.make_output_vec();
+        Some(Self {
+            seg,
+            len,
+            window: HANN.cached(seg),
+            psd: vec![vec![0.0; out.len()]; records],
+            segments: vec![0; records],
+            fft,
+            out,
+        })
+    }
+
+    /// Samples per segment.
+    pub fn segment(&self) -> usize {
+        self.seg
+    }
+
+    /// First sample of each segment (Hann segments, half overlap).
+    pub fn starts(&self) -> Vec<usize> {
+        let (seg, len) = (self.seg, self.len);
+        (0..)
+            .map(|i| i * (seg / 2))
+            .take_while(|s| s + seg <= len)
+            .collect()
+    }
+
+    /// Add one segment of record `r`; `segment` is overwritten (windowed).
+    ///
+    /// # Panics
+    /// When `segment` is not [`Welch::segment`] long or `r` is out of range.
+    pub fn add(&mut self, r: usize, segment: &mut [f64]) {
+        assert_eq!(segment.len(), self.seg, "segment length");
+        for (v, w) in segment.iter_mut().zip(self.window.iter()) {
+            *v *= w;
         }
-        for (p, o) in psd.iter_mut().zip(&out) {
+        if self.fft.process(segment, &mut self.out).is_err() {
+            return;
+        }
+        for (p, o) in self.psd[r].iter_mut().zip(&self.out) {
             *p += o.norm_sqr();
         }
-        segments += 1;
-        start += hop;
+        self.segments[r] += 1;
     }
+
+    /// Mean-square power inside each band, per record.
+    pub fn band_powers(&self, sample_rate_hz: f64, bands: &[Band]) -> Vec<Vec<f64>> {
+        let s2: f64 = self.window.iter().map(|v| v * v).sum();
+        self.psd
+            .iter()
+            .zip(&self.segments)
+            .map(|(psd, n)| bands_of(psd, self.seg, *n, s2, sample_rate_hz, bands))
+            .collect()
+    }
+}
+
+/// Band powers from the summed |X_k|² of `segments` Hann segments of `seg`
+/// samples with Σw² = `s2`.
+fn bands_of(
+    psd: &[f64],
+    seg: usize,
+    segments: usize,
+    s2: f64,
+    sample_rate_hz: f64,
+    bands: &[Band],
+) -> Vec<f64> {
     let bin_hz = sample_rate_hz / seg as f64;
     // One-sided density: |X|²·2/(fs·Σw²), the DC and Nyquist bins once.
     let last = psd.len() - 1;
@@ -56,7 +127,7 @@ pub fn band_powers(x: &[f64], sample_rate_hz: f64, bands: &[Band]) -> Vec<f64> {
         .iter()
         .enumerate()
         .map(|(k, p)| {
-            let one_sided = if k == 0 || (k == last && seg % 2 == 0) {
+            let one_sided = if k == 0 || (k == last && seg.is_multiple_of(2)) {
                 1.0
             } else {
                 2.0
