@@ -1054,7 +1054,10 @@ pub fn fit_with_residuals(
             }
         }
         let theta: Vec<f64x8> = theta.into_iter().map(f64x8::new).collect();
-        let mut out = vec![Vec::with_capacity(group.baseband.len()); chans.len()];
+        // (Each built on its own: a cloned empty Vec would not keep the capacity.)
+        let mut out: Vec<Vec<Complex<f64>>> = (0..chans.len())
+            .map(|_| Vec::with_capacity(group.baseband.len()))
+            .collect();
         for (j, [xr, xi]) in group.baseband.iter().enumerate() {
             let (mut re, mut im) = (*xr, *xi);
             for (t, (cr, ci)) in theta.iter().zip(&pass.columns[j * q..(j + 1) * q]) {

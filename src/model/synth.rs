@@ -167,7 +167,7 @@ fn synth_capture(
         .collect();
     let q = 2f64.powi(1 - fe.bits as i32);
     let total = timing.total();
-    let mut out = vec![Vec::with_capacity(total); n_ch];
+    let mut out: Vec<Vec<f64>> = (0..n_ch).map(|_| Vec::with_capacity(total)).collect();
     let mut tone_cs = vec![(0.0, 0.0); tones.len()];
     for n in 0..total {
         let jitter: f64 = if m.clock.jitter_rms_s > 0.0 {
