@@ -1,4 +1,4 @@
-//! The results folder's files: pairs.csv, channels.csv, leakage-<f>Hz.csv and
+//! The results folder's files: pairs.csv, channels.csv, `leakage-<f>Hz.csv` and
 //! summary.json (format of RUN-FORMAT.md, results part).
 
 use super::RunResults;

@@ -92,7 +92,7 @@ pub struct SpectrumRef {
     pub window: Option<String>,
 }
 
-/// The columns of one spectrum-<f>Hz.csv, levels in dBFS.
+/// The columns of one `spectrum-<f>Hz.csv`, levels in dBFS.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct SpectrumRows {
     /// Bucket frequency, Hz.

@@ -1,7 +1,7 @@
 //! Verdicts on a results folder: pass limits (`limits`), a data sheet's
 //! claims (`claims`) and drift from an earlier run of the same front end
 //! (`baseline`). Everything here is pure: it takes a
-//! [`ResultsFolder`](crate::run::ResultsFolder) and parsed files and returns
+//! [`crate::run::ResultsFolder`] and parsed files and returns
 //! plain structs; printing and exit codes belong to the command line.
 //!
 //! Every check ends in one of three outcomes. A measured figure whose
