@@ -9,6 +9,7 @@ use std::f64::consts::PI;
 
 /// Least squares by the book: explicit columns, normal equations, Gaussian
 /// elimination with partial pivoting.
+#[allow(clippy::needless_range_loop)] // textbook normal equations and Gauss-Jordan, by index
 fn naive_fit(x: &[f32], omega: f64, terms: usize) -> Vec<f64> {
     let len = x.len();
     let center = (len as f64 - 1.0) / 2.0;

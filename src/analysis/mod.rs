@@ -362,6 +362,8 @@ pub fn assemble(
                 .unwrap_or(v.residual_rms * (2.0 / cap.span_frames as f64).sqrt());
             let limit = config.detection_factor * sigma;
             let limit_dbfs = amplitude_to_dbfs(limit);
+            // A NaN amplitude or limit counts as floor-limited.
+            #[allow(clippy::neg_cmp_op_on_partial_ord)]
             let floor_limited = !(v.amplitude > limit);
             let (victim_dbfs, u95) = if floor_limited {
                 (limit_dbfs, None)

@@ -30,20 +30,6 @@ pub fn dbfs_to_rms(dbfs: f64) -> f64 {
     10f64.powf(dbfs / 20.0) / std::f64::consts::SQRT_2
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn conventions_agree() {
-        assert!((amplitude_to_dbfs(1.0)).abs() < 1e-12);
-        assert!((rms_to_dbfs(1.0 / 2f64.sqrt())).abs() < 1e-12);
-        assert!((power_to_dbfs(0.5)).abs() < 1e-12);
-        assert!((dbfs_to_rms(-20.0) - 0.1 / 2f64.sqrt()).abs() < 1e-15);
-        assert!((dbfs_to_amplitude(amplitude_to_dbfs(0.0123)) - 0.0123).abs() < 1e-15);
-    }
-}
-
 /// Jitter-limited SNR of a full-scale sine at `freq_hz` sampled with rms
 /// jitter `jitter_s`: `−20·log10(2π·f·σt)` dB.
 pub fn jitter_snr_db(freq_hz: f64, jitter_s: f64) -> f64 {
@@ -62,4 +48,18 @@ pub fn enob_from_sinad(sinad_db: f64) -> f64 {
 /// form needs no correction for a tone below full scale.
 pub fn enob_from_nad(nad: f64) -> f64 {
     (2.0 / (nad * 12f64.sqrt())).log2()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn conventions_agree() {
+        assert!((amplitude_to_dbfs(1.0)).abs() < 1e-12);
+        assert!((rms_to_dbfs(1.0 / 2f64.sqrt())).abs() < 1e-12);
+        assert!((power_to_dbfs(0.5)).abs() < 1e-12);
+        assert!((dbfs_to_rms(-20.0) - 0.1 / 2f64.sqrt()).abs() < 1e-15);
+        assert!((dbfs_to_amplitude(amplitude_to_dbfs(0.0123)) - 0.0123).abs() < 1e-15);
+    }
 }

@@ -24,6 +24,8 @@ impl Cholesky {
                     s -= l[i * n + k] * l[j * n + k];
                 }
                 if i == j {
+                    // Not positive (or NaN): not positive definite.
+                    #[allow(clippy::neg_cmp_op_on_partial_ord)]
                     if !(s > 0.0) || !s.is_finite() {
                         return None;
                     }
@@ -40,6 +42,7 @@ impl Cholesky {
     ///
     /// # Panics
     /// When `b.len()` differs from the matrix order.
+    #[allow(clippy::needless_range_loop)] // the triangular solves read clearer with indices
     pub fn solve(&self, b: &[f64]) -> Vec<f64> {
         let n = self.n;
         assert_eq!(b.len(), n, "right-hand side size");

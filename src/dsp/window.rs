@@ -93,8 +93,10 @@ impl CosineWindow {
     /// The window of length `len`, computed once per thread and length and
     /// then shared (captures of one run mostly share their lengths).
     pub fn cached(&self, len: usize) -> Rc<[f64]> {
+        /// (window's coefficients, length, samples)
+        type Entry = (usize, usize, Rc<[f64]>);
         thread_local! {
-            static CACHE: RefCell<Vec<(usize, usize, Rc<[f64]>)>> = const { RefCell::new(Vec::new()) };
+            static CACHE: RefCell<Vec<Entry>> = const { RefCell::new(Vec::new()) };
         }
         let key = self.coefficients.as_ptr() as usize;
         CACHE.with(|c| {

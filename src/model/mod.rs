@@ -481,6 +481,7 @@ impl FrontEndModel {
     }
 
     /// Draw the spreads and apply the overrides.
+    #[allow(clippy::needless_range_loop)] // aggressor and victim indices, as in the model file
     pub fn resolve(&self) -> Resolved {
         let fe = &self.front_end;
         let mut rng = rand::rngs::StdRng::seed_from_u64(self.seed ^ 0x5e97_0000);

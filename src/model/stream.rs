@@ -139,6 +139,7 @@ impl StreamProcessor {
     ///
     /// # Panics
     /// When the two buffers differ in length or are not whole frames.
+    #[allow(clippy::needless_range_loop)] // channel indices into several arrays at once
     pub fn process(&mut self, at_inputs: &[f32], out: &mut [f32]) {
         let n = self.n;
         assert_eq!(at_inputs.len(), out.len());

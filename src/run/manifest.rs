@@ -212,6 +212,8 @@ impl Manifest {
                     self.channels.len()
                 ));
             }
+            // Written so that a NaN frequency fails too.
+            #[allow(clippy::nonminimal_bool)]
             if !(c.frequency_hz > 0.0 && c.frequency_hz < nyquist) || !c.level_dbfs.is_finite() {
                 return Err(format!(
                     "common_drive[{i}]: frequency_hz must lie between 0 and {nyquist} Hz and level_dbfs be a number"

@@ -168,7 +168,7 @@ fn read_frames_inner<R: Read>(
     if total == 0 {
         return Err(bad("holds no samples (empty capture)".into()));
     }
-    if total % channels != 0 {
+    if !total.is_multiple_of(channels) {
         return Err(bad(format!(
             "data holds {total} samples, not a whole number of {channels}-channel frames"
         )));

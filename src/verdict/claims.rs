@@ -168,7 +168,7 @@ impl Claims {
                 ));
             }
         }
-        let finite = |v: Option<f64>| v.map_or(true, f64::is_finite);
+        let finite = |v: Option<f64>| v.is_none_or(f64::is_finite);
         for (i, s) in self.separation.iter().enumerate() {
             s.frequencies()
                 .validate()
