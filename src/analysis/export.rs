@@ -29,32 +29,48 @@ fn write_rows(path: &Path, rows: impl IntoIterator<Item = Vec<String>>) -> Resul
     w.flush().map_err(|e| RunError::io(path, e))
 }
 
-/// Write every results file into `dir`.
+/// Write every results file into `dir`. The files are independent, so they
+/// are written side by side (with hundreds of channels, formatting the
+/// pairs for pairs.csv and summary.json takes as long as the analysis).
 pub fn write_results(results: &RunResults, dir: &Path) -> Result<(), RunError> {
-    write_pairs(results, &dir.join("pairs.csv"))?;
-    write_channels(results, &dir.join("channels.csv"))?;
-    for f in results.manifest.frequencies() {
-        write_leakage(results, f, &dir.join(leakage_file_name(f)))?;
+    use rayon::prelude::*;
+    type Job<'a> = Box<dyn FnOnce() -> Result<(), RunError> + Send + 'a>;
+    let r = results;
+    let mut jobs: Vec<Job> = vec![
+        Box::new(move || {
+            let path = dir.join("summary.json");
+            let text = serde_json::to_string_pretty(&summary(r)).expect("summary serialises");
+            std::fs::write(&path, text + "\n").map_err(|e| RunError::io(&path, e))
+        }),
+        Box::new(move || write_pairs(r, &dir.join("pairs.csv"))),
+        Box::new(move || write_channels(r, &dir.join("channels.csv"))),
+    ];
+    for f in r.manifest.frequencies() {
+        jobs.push(Box::new(move || {
+            write_leakage(r, f, &dir.join(leakage_file_name(f)))
+        }));
     }
-    for s in &results.per_frequency {
-        write_spectrum(
-            results,
-            s.frequency_hz,
-            &dir.join(spectrum_file_name(s.frequency_hz)),
-        )?;
+    for s in &r.per_frequency {
+        let f = s.frequency_hz;
+        jobs.push(Box::new(move || {
+            write_spectrum(r, f, &dir.join(spectrum_file_name(f)))
+        }));
     }
-    if !results.drive_quality.is_empty() {
-        write_drive(results, &dir.join("drive.csv"))?;
+    if !r.drive_quality.is_empty() {
+        jobs.push(Box::new(move || write_drive(r, &dir.join("drive.csv"))));
     }
-    if !results.coupling.is_empty() {
-        write_coupling(results, dir)?;
+    if !r.coupling.is_empty() {
+        jobs.push(Box::new(move || write_coupling(r, dir)));
     }
-    if !results.common.is_empty() {
-        write_common(results, &dir.join("common-drive.csv"))?;
+    if !r.common.is_empty() {
+        jobs.push(Box::new(move || {
+            write_common(r, &dir.join("common-drive.csv"))
+        }));
     }
-    let path = dir.join("summary.json");
-    let text = serde_json::to_string_pretty(&summary(results)).expect("summary serialises");
-    std::fs::write(&path, text + "\n").map_err(|e| RunError::io(&path, e))
+    jobs.into_par_iter()
+        .map(|job| job())
+        .collect::<Result<Vec<()>, RunError>>()
+        .map(|_| ())
 }
 
 fn write_pairs(r: &RunResults, path: &Path) -> Result<(), RunError> {
