@@ -214,15 +214,7 @@ pub fn fit_with_residuals(
         return Ok((fits, stats));
     }
     let p = model.params();
-    if len < 2 * p + 2 {
-        return Err(FitError::TooShort {
-            samples: len,
-            params: p,
-        });
-    }
-    let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
-        freq_hz: model.omega / (2.0 * PI),
-    })?;
+    let chol = gram_factor(model, len)?;
     let blocks = crate::dsp::plans::smooth_len(len / DECIMATION);
     let window = crate::dsp::window::HANN.cached(blocks * DECIMATION);
     let energy = crate::dsp::kernels::dot(&window, &window);

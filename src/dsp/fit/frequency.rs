@@ -69,14 +69,20 @@ pub(super) fn coarse_frequency_full(
     if spectrum[peak].norm_sqr() <= 0.0 {
         return Err(no_tone);
     }
-    let (a, b, c) = (mag(peak - 1), mag(peak), mag(peak + 1));
+    let delta = parabolic_offset(mag(peak - 1), mag(peak), mag(peak + 1));
+    Ok((peak as f64 + delta) * bin_hz)
+}
+
+/// Offset of a peak from its bin, in bins (±0.5 at most), from the log
+/// magnitudes `a`, `b`, `c` of the bins before, at and after it: the vertex
+/// of the parabola through them.
+fn parabolic_offset(a: f64, b: f64, c: f64) -> f64 {
     let denom = a - 2.0 * b + c;
-    let delta = if denom.abs() > 0.0 {
+    if denom.abs() > 0.0 {
         (0.5 * (a - c) / denom).clamp(-0.5, 0.5)
     } else {
         0.0
-    };
-    Ok((peak as f64 + delta) * bin_hz)
+    }
 }
 
 /// [`coarse_frequency`] for a search band narrow against the sample rate:
@@ -138,13 +144,7 @@ pub(super) fn coarse_frequency_mixed(
         return Some(Err(no_tone));
     }
     let mag = |k: isize| at(k).max(1e-300).ln();
-    let (a, b, c) = (mag(peak - 1), mag(peak), mag(peak + 1));
-    let denom = a - 2.0 * b + c;
-    let delta = if denom.abs() > 0.0 {
-        (0.5 * (a - c) / denom).clamp(-0.5, 0.5)
-    } else {
-        0.0
-    };
+    let delta = parabolic_offset(mag(peak - 1), mag(peak), mag(peak + 1));
     Some(Ok(nominal_hz + (peak as f64 + delta) * bin_hz))
 }
 

@@ -305,9 +305,10 @@ pub use frequency::{coarse_frequency, estimate_frequency, estimate_frequency_fro
 use lanes::*;
 pub use lanes::{residual_frames, residual_pass};
 
-/// Fit `model` to every channel of `frames` at once.
-pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
-    let len = frames.len();
+/// The factor of the model's Gram matrix over `len` samples, shared by every
+/// channel's solve; an error when the record is too short or the basis
+/// degenerate.
+fn gram_factor(model: &ToneModel, len: usize) -> Result<Cholesky, FitError> {
     let p = model.params();
     if len < 2 * p + 2 {
         return Err(FitError::TooShort {
@@ -315,9 +316,14 @@ pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, Fit
             params: p,
         });
     }
-    let chol = Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
+    Cholesky::new(&gram(model, len), p).ok_or(FitError::Degenerate {
         freq_hz: model.omega / (2.0 * PI),
-    })?;
+    })
+}
+
+/// Fit `model` to every channel of `frames` at once.
+pub fn fit_frames(frames: Frames, model: &ToneModel) -> Result<Vec<ToneFit>, FitError> {
+    let chol = gram_factor(model, frames.len())?;
     // Side by side the lanes pay off from half a group of channels on;
     // fewer channels are summed one by one, vectorised along time.
     let proj = if frames.channels() < LANES / 2 {
