@@ -251,13 +251,12 @@ pub fn fit_with_residuals(
     DERIVED.with(|d| d.set(d.get() + need.iter().filter(|n| !**n).count()));
     let mut stats = explicit_residuals(frames, &fits, model, &need, copy);
     // The derived basebands, lane group by lane group.
-    let q = p;
     for (g, group) in pass.groups.iter().enumerate() {
         let chans = g * LANES..(g * LANES + LANES).min(nch);
         if chans.clone().all(|c| need[c]) {
             continue;
         }
-        let mut theta = vec![[0.0; LANES]; q];
+        let mut theta = vec![[0.0; LANES]; p];
         for (l, c) in chans.clone().enumerate() {
             for (t, v) in theta.iter_mut().zip(&thetas[c]) {
                 t[l] = *v;
@@ -270,7 +269,7 @@ pub fn fit_with_residuals(
             .collect();
         for (j, [xr, xi]) in group.baseband.iter().enumerate() {
             let (mut re, mut im) = (*xr, *xi);
-            for (t, (cr, ci)) in theta.iter().zip(&pass.columns[j * q..(j + 1) * q]) {
+            for (t, (cr, ci)) in theta.iter().zip(&pass.columns[j * p..(j + 1) * p]) {
                 re = (-*t).mul_add(f64x8::splat(*cr), re);
                 im = (-*t).mul_add(f64x8::splat(*ci), im);
             }
@@ -279,14 +278,13 @@ pub fn fit_with_residuals(
                 o.push(Complex::new(re[l], -im[l]));
             }
         }
-        for ((l, c), baseband) in chans.enumerate().zip(out) {
+        for (c, baseband) in chans.zip(out) {
             if let Some(rr) = derived[c] {
                 stats[c] = ResidualStats {
                     sum_sq: rr,
                     baseband,
                     window_energy: energy,
                 };
-                debug_assert!(l < LANES);
             }
         }
     }
