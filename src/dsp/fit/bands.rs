@@ -119,15 +119,8 @@ pub(super) fn residual_piece_plain(
             let fit = &fits[c];
             let x = frames.channel_range(c, first + b0..first + b0 + m);
             let o = &mut out[r][b0..b0 + m];
-            for (o, v) in o.iter_mut().zip(&x) {
-                *o = f64::from(*v) - fit.dc;
-            }
-            for k in 0..model.terms {
-                let (a, b) = (fit.cos[k], fit.sin[k]);
-                for ((v, co), si) in o.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
-                    *v -= a * co + b * si;
-                }
-            }
+            widen(&x, o);
+            basis.subtract_model(fit, o);
         }
     }
 }

@@ -355,15 +355,7 @@ pub(super) fn residual_channels(
             let fit = &fits[c];
             let r = &mut r[..m];
             widen(&x[n0..n0 + m], r);
-            for v in r.iter_mut() {
-                *v -= fit.dc;
-            }
-            for k in 0..model.terms {
-                let (a, b) = (fit.cos[k], fit.sin[k]);
-                for ((v, co), si) in r.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
-                    *v -= a * co + b * si;
-                }
-            }
+            basis.subtract_model(fit, r);
             let st = &mut stats[c];
             st.sum_sq += dot(r, r);
             for (j, chunk) in r.chunks(DECIMATION).enumerate() {

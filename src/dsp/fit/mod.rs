@@ -142,6 +142,20 @@ impl BasisBlock {
         );
     }
 
+    /// Take `fit`'s model off the samples in `r` (the block's first
+    /// `r.len()` frames), harmonic by harmonic, vectorised along time.
+    fn subtract_model(&self, fit: &ToneFit, r: &mut [f64]) {
+        let m = r.len();
+        for v in r.iter_mut() {
+            *v -= fit.dc;
+        }
+        for (k, (a, b)) in fit.cos.iter().zip(&fit.sin).enumerate() {
+            for ((v, c), s) in r.iter_mut().zip(&self.cos[k][..m]).zip(&self.sin[k][..m]) {
+                *v -= a * c + b * s;
+            }
+        }
+    }
+
     /// Column `p` of the basis `[1, cos1, sin1, cos2, sin2, …]`, or `None` for DC.
     fn column(&self, p: usize) -> Option<&[f64]> {
         match p {
@@ -240,16 +254,7 @@ pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut
         basis.fill(model, n0, m);
         let r = &mut r[..m];
         widen(&x[n0..n0 + m], r);
-        for v in r.iter_mut() {
-            *v -= fit.dc;
-        }
-        // Harmonic by harmonic over the block (vectorised along time).
-        for k in 0..model.terms {
-            let (a, b) = (fit.cos[k], fit.sin[k]);
-            for ((v, c), s) in r.iter_mut().zip(&basis.cos[k][..m]).zip(&basis.sin[k][..m]) {
-                *v -= a * c + b * s;
-            }
-        }
+        basis.subtract_model(fit, r);
         ss += dot(r, r);
         residual.extend_from_slice(r);
         n0 += m;
