@@ -257,15 +257,18 @@ pub fn analyze_run(
     // Each capture is read into a frames buffer that an earlier one has
     // left (at most one per worker), so pages are not faulted in afresh.
     let buffers: std::sync::Mutex<Vec<Vec<f32>>> = std::sync::Mutex::new(Vec::new());
+    let take_buffer = || {
+        buffers
+            .lock()
+            .map(|mut b| b.pop().unwrap_or_default())
+            .unwrap_or_default()
+    };
     let captures = manifest
         .captures
         .par_iter()
         .map(|entry| {
             let path = manifest.capture_path(run_dir, entry);
-            let buffer = buffers
-                .lock()
-                .map(|mut b| b.pop().unwrap_or_default())
-                .unwrap_or_default();
+            let buffer = take_buffer();
             let cap = read_frames_reusing(
                 &path,
                 nch,
@@ -323,10 +326,7 @@ pub fn analyze_run(
         .map(|&i| {
             let analysis = &results.captures[i];
             let path = run_dir.join(&analysis.file);
-            let buffer = buffers
-                .lock()
-                .map(|mut b| b.pop().unwrap_or_default())
-                .unwrap_or_default();
+            let buffer = take_buffer();
             let cap =
                 read_frames_reusing(&path, nch, results.manifest.sample_rate_hz, buffer, None)?;
             Ok((i, capture::spectra_of(&cap, analysis)))

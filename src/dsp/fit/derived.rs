@@ -215,9 +215,7 @@ pub fn fit_with_residuals(
     }
     let p = model.params();
     let chol = gram_factor(model, len)?;
-    let blocks = crate::dsp::plans::smooth_len(len / DECIMATION);
-    let window = crate::dsp::window::HANN.cached(blocks * DECIMATION);
-    let energy = crate::dsp::kernels::dot(&window, &window);
+    let (blocks, window, energy) = local_noise_window(len);
     let pass = by_columns!(
         model.terms,
         project_with_stats(frames, model, &window, blocks),
@@ -249,7 +247,8 @@ pub fn fit_with_residuals(
     let need: Vec<bool> = derived.iter().map(Option::is_none).collect();
     #[cfg(test)]
     DERIVED.with(|d| d.set(d.get() + need.iter().filter(|n| !**n).count()));
-    let mut stats = explicit_residuals(frames, &fits, model, &need, copy);
+    let mut stats =
+        explicit_residuals(frames, &fits, model, &need, copy, (blocks, &window, energy));
     // The derived basebands, lane group by lane group.
     for (g, group) in pass.groups.iter().enumerate() {
         let chans = g * LANES..(g * LANES + LANES).min(nch);
@@ -299,16 +298,13 @@ pub(super) fn explicit_residuals(
     model: &ToneModel,
     need: &[bool],
     copy: Option<(usize, &[f32])>,
+    (blocks, window, energy): (usize, &[f64], f64),
 ) -> Vec<ResidualStats> {
     let nch = frames.channels();
     let count = need.iter().filter(|n| **n).count();
     if count == 0 {
         return vec![ResidualStats::default(); nch];
     }
-    let len = frames.len();
-    let blocks = crate::dsp::plans::smooth_len(len / DECIMATION);
-    let window = crate::dsp::window::HANN.cached(blocks * DECIMATION);
-    let energy = crate::dsp::kernels::dot(&window, &window);
     if count > EXPLICIT_ONE_BY_ONE {
         let mut stats: Vec<ResidualStats> = (0..nch)
             .map(|_| ResidualStats {
@@ -328,7 +324,7 @@ pub(super) fn explicit_residuals(
                 &none,
                 &mut [],
                 &mut stats,
-                &window,
+                window,
                 blocks
             ),
             unreachable!("more than 10 terms take the two-pass route")
@@ -360,7 +356,7 @@ pub(super) fn explicit_residuals(
             &[false],
             &mut [Vec::new()],
             &mut one,
-            &window,
+            window,
             blocks,
         );
         let [st] = one;

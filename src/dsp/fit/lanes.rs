@@ -392,9 +392,7 @@ pub fn residual_frames(
     let nch = frames.channels();
     assert!(fits.len() == nch && keep.len() == nch && kept.len() == nch);
     let len = frames.len();
-    let blocks = crate::dsp::plans::smooth_len(len / DECIMATION);
-    let window = crate::dsp::window::HANN.cached(blocks * DECIMATION);
-    let energy = crate::dsp::kernels::dot(&window, &window);
+    let (blocks, window, energy) = local_noise_window(len);
     let mut stats: Vec<ResidualStats> = (0..nch)
         .map(|_| ResidualStats {
             sum_sq: 0.0,

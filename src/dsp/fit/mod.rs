@@ -265,6 +265,15 @@ pub fn residual_into(x: &[f32], fit: &ToneFit, model: &ToneModel, residual: &mut
 /// Decimation of the mixed-down residual kept for the local-noise estimate.
 pub const DECIMATION: usize = 16;
 
+/// The local-noise window of a record of `len` samples: the decimated
+/// blocks kept (a fast FFT length), the Hann window over them and its Σw².
+fn local_noise_window(len: usize) -> (usize, std::rc::Rc<[f64]>, f64) {
+    let blocks = super::plans::smooth_len(len / DECIMATION);
+    let window = super::window::HANN.cached(blocks * DECIMATION);
+    let energy = super::kernels::dot(&window, &window);
+    (blocks, window, energy)
+}
+
 /// What the residual pass keeps of one channel.
 #[derive(Debug, Clone, Default)]
 pub struct ResidualStats {
